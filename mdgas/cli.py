@@ -1,0 +1,194 @@
+"""The command line: parse, call the library, print. User errors exit 2, success 0."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+import tempfile
+import time
+import traceback
+from pathlib import Path
+from typing import Any, Callable
+
+from . import __version__
+from .errors import UserError
+
+COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {}
+
+
+def command(name: str):
+    def deco(fn):
+        COMMANDS[name] = fn
+        return fn
+    return deco
+
+
+def _settings(args) -> "Any":
+    from . import config
+    overrides = dict(config.parse_override(item) for item in (args.set or []))
+    return config.load(args.config, overrides)
+
+
+# -- run / check ----------------------------------------------------------------------
+
+@command("run")
+def cmd_run(args) -> int:
+    from .driver import simulate
+    from .run import load
+    from .analysis.summary import render_text
+    settings = _settings(args)
+    out = Path(args.output or settings.output.path)
+    print(f"mdgas: running {settings.gas.model} N={settings.gas.particles} "
+          f"-> {out}", file=sys.stderr)
+    t0 = time.monotonic()
+    simulate(settings, out, force=args.force, progress=None if not args.quiet else False)
+    print(f"mdgas: finished in {time.monotonic() - t0:.1f} s wall time", file=sys.stderr)
+    print(render_text(load(out).summary()))
+    return 0
+
+
+def derived_figures(settings) -> dict[str, Any]:
+    """Figures a practitioner wants before spending CPU time (reduced units)."""
+    from .engines import get_engine
+    s = settings
+    box = s.box
+    rho, t = s.gas.density, s.gas.temperature
+    mean_speed = math.sqrt(8.0 * t / math.pi)
+    walled_area = sum(2 * box[(a + 1) % 3] * box[(a + 2) % 3] for a in range(3) if s.walled[a])
+    mfp = 1.0 / (math.sqrt(2.0) * math.pi * rho)  # diameter σ = 1
+    engine = get_engine(s.gas.model)(s)
+    total = s.schedule.equilibrate + s.schedule.produce
+    return {
+        "box_edges": [float(x) for x in box],
+        "volume": s.volume,
+        "packing_fraction": math.pi / 6.0 * rho,
+        "mean_free_path": mfp,
+        "knudsen_number": mfp / float(min(box)),
+        "wall_hits_per_time": 0.25 * rho * mean_speed * walled_area,
+        "samples": int(round(s.schedule.produce / s.output.sample_every)),
+        "estimated_seconds": engine.cost_per_time() * total,
+        "estimated_memory_mb": engine.memory_bytes() / 2 ** 20,
+    }
+
+
+@command("check")
+def cmd_check(args) -> int:
+    settings = _settings(args)
+    fig = derived_figures(settings)
+    if args.json:
+        print(json.dumps({"settings": settings.as_dict(), "derived": fig}, indent=2))
+        return 0
+    print(f"{settings.source}: valid\n")
+    for section, values in settings.as_dict().items():
+        print(f"[{section}]")
+        for k, v in values.items():
+            print(f"  {k:<20} = {json.dumps(v)}")
+    ideal = settings.gas.model == "ideal"
+    note = "  (for particles of diameter σ; ideal ones are points)" if ideal else ""
+    print("\nderived (reduced units)")
+    print(f"  box edges           {' × '.join(f'{x:.4g}' for x in fig['box_edges'])} σ")
+    print(f"  volume              {fig['volume']:.4g} σ³")
+    print(f"  packing fraction    {fig['packing_fraction']:.4g}{note}")
+    print(f"  mean free path      {fig['mean_free_path']:.4g} σ{note}")
+    print(f"  Knudsen number      {fig['knudsen_number']:.4g} (mean free path / smallest edge)")
+    print(f"  wall hits per τ     {fig['wall_hits_per_time']:.4g}")
+    print(f"  production samples  {fig['samples']}")
+    print(f"  estimated cost      {fig['estimated_seconds']:.3g} s wall time, "
+          f"{fig['estimated_memory_mb']:.3g} MB")
+    return 0
+
+
+@command("summary")
+def cmd_summary(args) -> int:
+    from .run import load
+    from .analysis.summary import render_text
+    summary = load(args.run).summary()
+    if args.json:
+        print(json.dumps(summary, indent=2, allow_nan=False, default=_json_default))
+    else:
+        print(render_text(summary))
+    return 0
+
+
+def _json_default(o):
+    import numpy as np
+    if isinstance(o, np.generic):
+        return o.item()
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    raise TypeError(type(o).__name__)
+
+
+@command("demo")
+def cmd_demo(args) -> int:
+    from . import config
+    from .driver import simulate
+    from .run import load
+    from .analysis.summary import render_text
+    settings = config.default_settings()
+    out = Path(args.output or settings.output.path)
+    print(f"mdgas demo: the embedded default job (ideal gas in a closed box) -> {out}",
+          file=sys.stderr)
+    simulate(settings, out, force=True, progress=None)
+    print(render_text(load(out).summary()))
+    return 0
+
+
+# -- parser -------------------------------------------------------------------------
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="mdgas",
+        description="Where does PV = NkT stop being good enough? Simulate, measure, compare.")
+    p.add_argument("--version", action="version", version=f"mdgas {__version__}")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+
+    r = sub.add_parser("run", help="run a config file and write a run file")
+    r.add_argument("config", help="TOML config file")
+    r.add_argument("-o", "--output", help="run file path (default: [output] path)")
+    r.add_argument("--set", action="append", metavar="KEY=VALUE",
+                   help="override a config key, e.g. --set gas.density=0.05 (repeatable)")
+    r.add_argument("--force", action="store_true", help="overwrite an existing run file")
+    r.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
+
+    c = sub.add_parser("check", help="validate a config and print derived figures")
+    c.add_argument("config")
+    c.add_argument("--set", action="append", metavar="KEY=VALUE")
+    c.add_argument("--json", action="store_true", help="print one JSON object")
+
+    s = sub.add_parser("summary", help="summarise a run file")
+    s.add_argument("run", help="run file (.h5)")
+    s.add_argument("--json", action="store_true", help="print one JSON object")
+
+    d = sub.add_parser("demo", help="run the embedded default job")
+    d.add_argument("-o", "--output", help="where to write (default: runs/)")
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not args.command:
+        parser.print_help()
+        return 2
+    try:
+        return COMMANDS[args.command](args)
+    except UserError as exc:
+        print(f"mdgas: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("\nmdgas: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # an internal error: short message, full traceback to a file
+        log = Path(tempfile.gettempdir()) / f"mdgas-crash-{int(time.time())}.log"
+        log.write_text(traceback.format_exc())
+        print(f"mdgas: internal error: {exc.__class__.__name__}: {exc}\n"
+              f"the full traceback was written to {log}; please include it in a bug report",
+              file=sys.stderr)
+        return 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())
