@@ -76,7 +76,7 @@ class IdealGas(Engine):
         rng = np.random.default_rng(s.schedule.seed)
         n = s.gas.particles
         pos = uniform_positions(rng, n, np.zeros(3), self.box)
-        vel = maxwell_boltzmann(rng, n, s.gas.temperature)
+        vel = maxwell_boltzmann(rng, n, s.gas.temperature, periodic=s.container.walls == "none")
         return {"positions": pos, "velocities": vel, "time": np.zeros(1),
                 "rng": seed_state(s.schedule.seed, stream=1)}
 

@@ -8,19 +8,19 @@ import numpy as np
 
 
 def maxwell_boltzmann(rng: np.random.Generator, n: int, temperature: float,
-                      zero_momentum: bool = True) -> np.ndarray:
+                      periodic: bool = False) -> np.ndarray:
     """Velocities (N, 3) from Maxwell-Boltzmann at ``temperature`` (unit mass).
 
-    With ``zero_momentum`` the centre-of-mass velocity is removed. Each component is
+    The centre-of-mass velocity is always removed. Each component is
     then rescaled so that its kinetic temperature is exact: without that, the per-axis
     kinetic energy of a gas between specular walls (which never mixes axes) would stay
-    off by its initial fluctuation, about sqrt(2/N).
+    off by its initial fluctuation, about sqrt(2/N). ``periodic`` (no walls: momentum is
+    conserved) counts N - 1 degrees of freedom per axis, as ``observe.kinetic_dof`` does.
     """
     v = rng.normal(0.0, math.sqrt(temperature), size=(n, 3))
     if n > 1:
-        dof = n - 1 if zero_momentum else n
-        if zero_momentum:
-            v -= v.mean(axis=0)
+        v -= v.mean(axis=0)
+        dof = n - 1 if periodic else n
         v *= np.sqrt(temperature * dof / (v * v).sum(axis=0))
     return v
 
