@@ -95,9 +95,94 @@ def _speeds(vel):
     return out
 
 
+@njit(cache=True)
+def pair_distance_counts(pos, box, rmax, counts):
+    """Add ordered pair counts (i != j, minimum image on every axis) by distance.
+
+    ``counts`` has bins of equal width over [0, rmax); rmax <= min(box)/2. Uses a cell
+    list when at least 3 cells fit along every axis, else the O(N²) loop.
+    """
+    n = pos.shape[0]
+    nb = counts.shape[0]
+    scale = nb / rmax
+    r2max = rmax * rmax
+    nc = np.empty(3, dtype=np.int64)
+    for a in range(3):
+        nc[a] = int(box[a] / rmax)
+    if nc[0] < 3 or nc[1] < 3 or nc[2] < 3:
+        for i in range(n):
+            for j in range(i + 1, n):
+                r2 = 0.0
+                for a in range(3):
+                    d = pos[i, a] - pos[j, a]
+                    d -= box[a] * np.rint(d / box[a])
+                    r2 += d * d
+                if r2 < r2max:
+                    k = int(math.sqrt(r2) * scale)
+                    if k < nb:
+                        counts[k] += 2.0
+        return
+    ncell = nc[0] * nc[1] * nc[2]
+    head = -np.ones(ncell, dtype=np.int64)
+    nxt = np.empty(n, dtype=np.int64)
+    cell_of = np.empty((n, 3), dtype=np.int64)
+    for i in range(n):
+        c = 0
+        for a in range(3):
+            k = int(pos[i, a] / box[a] * nc[a])
+            k = min(max(k, 0), nc[a] - 1)
+            cell_of[i, a] = k
+            c = c * nc[a] + k
+        nxt[i] = head[c]
+        head[c] = i
+    for i in range(n):
+        for dx in range(-1, 2):
+            cx = (cell_of[i, 0] + dx + nc[0]) % nc[0]
+            for dy in range(-1, 2):
+                cy = (cell_of[i, 1] + dy + nc[1]) % nc[1]
+                for dz in range(-1, 2):
+                    cz = (cell_of[i, 2] + dz + nc[2]) % nc[2]
+                    j = head[(cx * nc[1] + cy) * nc[2] + cz]
+                    while j >= 0:
+                        if j != i:
+                            r2 = 0.0
+                            for a in range(3):
+                                d = pos[i, a] - pos[j, a]
+                                d -= box[a] * np.rint(d / box[a])
+                                r2 += d * d
+                            if r2 < r2max:
+                                k = int(math.sqrt(r2) * scale)
+                                if k < nb:
+                                    counts[k] += 1.0
+                        j = nxt[j]
+
+
+@njit(cache=True)
+def wall_distance_counts(pos, box, walled, dmax, counts):
+    """Add counts of particle-centre distances from each walled face, bins over [0, dmax)."""
+    nb = counts.shape[1]
+    scale = nb / dmax
+    for i in range(pos.shape[0]):
+        for a in range(3):
+            if walled[a]:
+                for upper in range(2):
+                    d = box[a] - pos[i, a] if upper else pos[i, a]
+                    k = int(d * scale)
+                    if 0 <= k < nb:
+                        counts[2 * a + upper, k] += 1.0
+
+
+#: Range of the g(r) histogram (σ) and of the near-wall profile (σ from the wall plane).
+RDF_RANGE = 5.0
+RDF_BINS = 250
+WALL_LAYER = 1.5
+WALL_LAYER_BINS = 60
+
+
 class Histograms:
-    """Production histograms from state snapshots: speeds, velocity components and the
-    number-density profile along every axis (σ⁻³)."""
+    """Production histograms from state snapshots: speeds, velocity components, the
+    number-density profile along every axis, a fine profile next to each walled face,
+    and pair-distance counts for g(r) in fully periodic boxes."""
 
     def __init__(self, settings) -> None:
         nb = settings.output.histogram_bins
@@ -110,6 +195,15 @@ class Histograms:
         self.velocity = np.zeros((3, nb))
         self.profile = np.zeros((3, nb))
         self.samples = 0
+        self.box = np.asarray(settings.box, dtype=float)
+        self.walled = np.array(settings.walled, dtype=np.bool_)
+        self.wall_edges = np.linspace(0.0, WALL_LAYER, WALL_LAYER_BINS + 1)
+        self.wall_layer = np.zeros((6, WALL_LAYER_BINS))
+        # g(r) only means something without walls (a homogeneous, isotropic fluid).
+        self.rdf_max = min(RDF_RANGE, 0.5 * float(self.box.min()))
+        self.with_rdf = settings.container.walls == "none" and settings.gas.model != "ideal"
+        self.rdf_edges = np.linspace(0.0, self.rdf_max, RDF_BINS + 1)
+        self.rdf = np.zeros(RDF_BINS)
 
     def add(self, state: dict) -> None:
         pos, vel = state["positions"], state["velocities"]
@@ -119,16 +213,24 @@ class Histograms:
                            self.velocity[a])
             _histogram_add(pos[:, a].copy(), self.profile_edges[a, 0], self.profile_edges[a, -1],
                            self.profile[a])
+        if self.walled.any():
+            wall_distance_counts(pos, self.box, self.walled, WALL_LAYER, self.wall_layer)
+        if self.with_rdf:
+            pair_distance_counts(pos, self.box, self.rdf_max, self.rdf)
         self.samples += 1
 
     def arrays(self) -> dict[str, np.ndarray]:
         return {"speed_edges": self.speed_edges, "speed_counts": self.speed,
                 "velocity_edges": self.velocity_edges, "velocity_counts": self.velocity,
                 "profile_edges": self.profile_edges, "profile_counts": self.profile,
+                "wall_layer_edges": self.wall_edges, "wall_layer_counts": self.wall_layer,
+                "rdf_edges": self.rdf_edges, "rdf_counts": self.rdf,
                 "samples": np.array(self.samples)}
 
     def load(self, arrays: dict) -> None:
         self.speed[:] = arrays["speed_counts"]
         self.velocity[:] = arrays["velocity_counts"]
         self.profile[:] = arrays["profile_counts"]
+        self.wall_layer[:] = arrays["wall_layer_counts"]
+        self.rdf[:] = arrays["rdf_counts"]
         self.samples = int(arrays["samples"])
