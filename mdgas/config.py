@@ -366,3 +366,22 @@ def default_settings() -> Settings:
     """The embedded default job (also what ``mdgas demo`` runs first)."""
     return from_dict(parse_text(DEFAULT_TEXT, "<embedded default>"),
                      source="<embedded default>", text=DEFAULT_TEXT)
+
+
+def keys_markdown() -> str:
+    """The README's table of config keys, generated from the dataclasses' docs."""
+    out = []
+    for name, cls in SECTIONS.items():
+        out.append(f"\n**[{name}]**\n\n| key | default | meaning (reduced units unless said) |\n"
+                   "|---|---|---|")
+        for f in dataclasses.fields(cls):
+            d, choices = f.default, f.metadata["choices"]
+            extra = (" — one of " + ", ".join(f'`"{c}"`' for c in choices)) if choices else ""
+            if d is None:
+                shown = "unset"
+            elif isinstance(d, str):
+                shown = f'`"{d}"`'
+            else:
+                shown = f"`{list(d) if isinstance(d, tuple) else d}`"
+            out.append(f"| `{f.name}` | {shown} | {f.metadata['doc']}{extra} |")
+    return "\n".join(out) + "\n"
