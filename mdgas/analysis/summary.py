@@ -46,6 +46,30 @@ def compressibility(run) -> Estimate:
     return ratio(p, t, 1.0 / run.settings.gas.density)
 
 
+def collision_figures(run) -> dict[str, Any]:
+    """Pair-collision figures (hard spheres; zeros elsewhere): JSON-ready estimates.
+
+    ``pressure_virial``: the virial pressure (ε/σ³, kinetic + collision virial over V).
+    ``collision_rate``: pair collisions per particle per τ, 2 C / (N Δt) per sample.
+    ``mean_free_path``: λ = <|v|> / collision_rate (σ), with the Maxwell-Boltzmann mean
+    speed <|v|> = sqrt(8 kT / (π m)) at the measured temperature; None without collisions.
+    """
+    times, coll = run.series("collisions", production=False)
+    mask = run.production_mask()
+    dt = np.diff(np.concatenate([[0.0], times]))[mask]
+    rate = estimate(2.0 * coll[mask] / (run.settings.gas.particles * dt))
+    _, pv = run.series("pressure_virial")
+    _, temp = run.series("temperature")
+    t = estimate(temp)
+    mfp = None
+    if rate.mean > 0:
+        speed = Estimate(float(np.sqrt(8.0 * t.mean / np.pi)), 0.5 * float(
+            np.sqrt(8.0 * t.mean / np.pi)) * t.stderr / t.mean, t.n_eff)
+        mfp = ratio(speed, rate).as_json()
+    return {"pressure_virial": estimate(pv).as_json(), "collision_rate": rate.as_json(),
+            "mean_free_path": mfp}
+
+
 def summarize(run) -> dict[str, Any]:
     """The summary as a JSON-ready dict (see README, "Summary keys")."""
     s = run.settings
@@ -85,6 +109,7 @@ def summarize(run) -> dict[str, Any]:
         "effective_samples": n_eff,
         "warnings": warnings,
     }
+    out.update(collision_figures(run))
     return out
 
 
