@@ -21,12 +21,18 @@ def _face_estimates(run) -> dict[str, Estimate]:
 
 
 def wall_pressure(run) -> Estimate | None:
-    """Mean wall pressure over every walled face (ε/σ³), or None without walls."""
+    """Wall pressure over every walled face (ε/σ³), or None without walls.
+
+    Area-weighted: the total impulse on all walls per total wall area and time, so a
+    small, rarely hit face (the end cap of a tall column) does not dominate the noise.
+    """
     faces = [k for k in range(6) if run.settings.walled[k // 2]]
     if not faces:
         return None
     _, pw = run.series("pressure_wall")
-    return estimate(pw[:, faces].mean(axis=1))
+    box = run.settings.box
+    area = np.array([box[1] * box[2], box[0] * box[2], box[0] * box[1]]).repeat(2)[faces]
+    return estimate(pw[:, faces] @ (area / area.sum()))
 
 
 def measured_pressure(run) -> tuple[str, Estimate]:
