@@ -34,3 +34,10 @@ class InstabilityError(Exception):
     Raised by the driver; the data recorded so far is kept and the run file is
     marked ``failed`` with this message.
     """
+
+
+class RunInterrupted(UserError):
+    """A run stopped on SIGINT/SIGTERM after writing a checkpoint; the command line
+    prints the message (which says how to resume) and exits with status 130."""
+
+    exit_status = 130
