@@ -40,12 +40,33 @@ def cmd_run(args) -> int:
     from .analysis.summary import render_text
     settings = _settings(args)
     out = Path(args.output or settings.output.path)
+    _print_warnings(settings)
     print(f"mdgas: running {settings.gas.model} N={settings.gas.particles} "
           f"-> {out}", file=sys.stderr)
     t0 = time.monotonic()
     simulate(settings, out, force=args.force, progress=None if not args.quiet else False)
     print(f"mdgas: finished in {time.monotonic() - t0:.1f} s wall time", file=sys.stderr)
     print(render_text(load(out).summary()))
+    return 0
+
+
+def _print_warnings(settings) -> None:
+    """Legal but unwise settings, once each on stderr."""
+    from .driver import warnings_for
+    for w in warnings_for(settings):
+        print(f"mdgas: warning: {w}", file=sys.stderr)
+
+
+@command("resume")
+def cmd_resume(args) -> int:
+    from .driver import resume
+    from .run import load
+    from .analysis.summary import render_text
+    print(f"mdgas: resuming {args.run} from its last checkpoint", file=sys.stderr)
+    t0 = time.monotonic()
+    resume(args.run, progress=None if not args.quiet else False)
+    print(f"mdgas: finished in {time.monotonic() - t0:.1f} s wall time", file=sys.stderr)
+    print(render_text(load(args.run).summary()))
     return 0
 
 
@@ -71,14 +92,20 @@ def derived_figures(settings) -> dict[str, Any]:
         # Engine work plus the driver's per-chunk bookkeeping (about 0.3 ms a sample).
         "estimated_seconds": engine.cost_per_time() * total
         + 3e-4 * total / s.output.sample_every,
-        "estimated_memory_mb": engine.memory_bytes() / 2 ** 20,
+        "estimated_memory_mb": _memory_estimate(s, engine) / 2 ** 20,
     }
+
+
+def _memory_estimate(settings, engine) -> int:
+    from .driver import memory_estimate
+    return memory_estimate(settings, engine)
 
 
 @command("check")
 def cmd_check(args) -> int:
     settings = _settings(args)
     fig = derived_figures(settings)
+    _print_warnings(settings)
     if args.json:
         print(json.dumps({"settings": settings.as_dict(), "derived": fig}, indent=2))
         return 0
@@ -164,6 +191,10 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("run", help="run file (.h5)")
     s.add_argument("--json", action="store_true", help="print one JSON object")
 
+    rs = sub.add_parser("resume", help="continue an interrupted run from its last checkpoint")
+    rs.add_argument("run", help="run file (.h5) of an interrupted or killed run")
+    rs.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
+
     d = sub.add_parser("demo", help="run the embedded default job")
     d.add_argument("-o", "--output", help="where to write (default: runs/)")
     return p
@@ -175,11 +206,13 @@ def main(argv: list[str] | None = None) -> int:
     if not args.command:
         parser.print_help()
         return 2
+    _route_warnings()
     try:
         return COMMANDS[args.command](args)
     except UserError as exc:
-        print(f"mdgas: error: {exc}", file=sys.stderr)
-        return 2
+        status = getattr(exc, "exit_status", 2)
+        print(f"mdgas: {'stopped' if status == 130 else 'error'}: {exc}", file=sys.stderr)
+        return status
     except KeyboardInterrupt:
         print("\nmdgas: interrupted", file=sys.stderr)
         return 130
@@ -190,6 +223,20 @@ def main(argv: list[str] | None = None) -> int:
               f"the full traceback was written to {log}; please include it in a bug report",
               file=sys.stderr)
         return 1
+
+
+def _route_warnings() -> None:
+    """Our own warnings (e.g. a damaged run file) as one line each, not a source dump."""
+    import warnings
+    from .store import RunFileWarning
+    default = warnings.showwarning
+
+    def show(message, category, filename, lineno, file=None, line=None):
+        if issubclass(category, RunFileWarning):
+            print(f"mdgas: warning: {message}", file=sys.stderr)
+        else:
+            default(message, category, filename, lineno, file, line)
+    warnings.showwarning = show
 
 
 if __name__ == "__main__":
