@@ -165,6 +165,12 @@ def cmd_demo(args) -> int:
     return 0
 
 
+@command("sweep")
+def cmd_sweep(args) -> int:
+    from .sweep import command_line
+    return command_line(args)
+
+
 # -- parser -------------------------------------------------------------------------
 
 def build_parser() -> argparse.ArgumentParser:
@@ -194,6 +200,9 @@ def build_parser() -> argparse.ArgumentParser:
     rs = sub.add_parser("resume", help="continue an interrupted run from its last checkpoint")
     rs.add_argument("run", help="run file (.h5) of an interrupted or killed run")
     rs.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
+
+    from .sweep import add_parser as _add_sweep_parser
+    _add_sweep_parser(sub)
 
     d = sub.add_parser("demo", help="run the embedded default job")
     d.add_argument("-o", "--output", help="where to write (default: runs/)")

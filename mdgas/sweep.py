@@ -937,3 +937,117 @@ def summary_text(result: SweepResult) -> str:
     for ref in result.refinements:
         lines.append(f"refine round {ref['round']}: {len(ref['points'])} new point(s)")
     return "\n".join(lines)
+
+
+# -- analysis of a sweep folder -------------------------------------------------------------
+
+BREAKDOWN_NAME = "breakdown.csv"
+
+
+@dataclass
+class Folder:
+    """A sweep folder read back: its table rows and what the index says about the sweep."""
+
+    path: Path
+    name: str
+    varied_keys: list[str]
+    tolerances: tuple[float, ...]
+    rows: list[dict[str, Any]]
+    sweep_text: str = ""
+
+
+def is_sweep_folder(path: str | Path) -> bool:
+    p = Path(path)
+    return p.is_dir() and (p / TABLE_NAME).is_file() and (p / INDEX_NAME).is_file()
+
+
+def open_folder(path: str | Path) -> Folder:
+    """Read a sweep folder written by :func:`run` (table.csv and sweep.h5)."""
+    import h5py
+    p = Path(path)
+    if not is_sweep_folder(p):
+        raise UserError(f"{p}: not a sweep folder (no {TABLE_NAME} and {INDEX_NAME}); "
+                        "give the folder `mdgas sweep` wrote, e.g. runs/<sweep name>")
+    try:
+        with h5py.File(p / INDEX_NAME, "r") as f:
+            g = f["sweep"]
+            name = g.attrs["name"]
+            keys = [k.decode() if isinstance(k, bytes) else k for k in g["varied_keys"][()]]
+            tol = tuple(float(t) for t in g.attrs["tolerances_percent"])
+            text = g["sweep_text"][()]
+    except (OSError, KeyError) as exc:
+        raise UserError(f"{p / INDEX_NAME}: damaged sweep index ({exc}); rerun the sweep to "
+                        "rewrite it") from None
+    return Folder(p, name.decode() if isinstance(name, bytes) else str(name), keys, tol,
+                  read_table(p / TABLE_NAME), text.decode() if isinstance(text, bytes) else text)
+
+
+def second_virial_for(rows: list[dict[str, Any]], folder: Path | None = None):
+    """A B2(model, T) function that uses the sweep's potential tail and cut-off."""
+    from . import breakdown
+    tail, cutoff = "corrected", 3.0
+    for r in rows:
+        if folder is not None and r.get("status") == "complete":
+            try:
+                from .run import load as load_run
+                s = load_run(folder / r["file"]).settings
+                tail, cutoff = s.potential.tail, s.potential.cutoff
+            except Exception:  # the table alone still gives an answer without B2 details
+                pass
+            break
+    return lambda model, t: breakdown.second_virial(model, t, tail, cutoff)
+
+
+def analyse(folder: Folder):
+    """The breakdown crossings of a sweep folder; also written to breakdown.csv there."""
+    from . import breakdown
+    keys = breakdown.group_keys(folder.varied_keys)
+    crossings = breakdown.find(folder.rows, keys, folder.tolerances,
+                               second_virial_for(folder.rows, folder.path))
+    breakdown.write_csv(crossings, folder.path / BREAKDOWN_NAME)
+    return crossings
+
+
+# -- the command line -----------------------------------------------------------------------
+
+def add_parser(sub) -> None:
+    """The ``mdgas sweep`` sub-command (called from mdgas.cli.build_parser)."""
+    p = sub.add_parser("sweep", help="run a sweep file: many state points, a table and a map",
+                       description="Run every state point of a sweep file that has no complete "
+                                   "run file yet; rerunning resumes.")
+    p.add_argument("sweep", help="sweep file (TOML)")
+    p.add_argument("-o", "--output", metavar="DIR", help="sweep folder (default: runs/<name>)")
+    p.add_argument("--dry-run", action="store_true",
+                   help="print the expanded runs and the estimated cost, run nothing")
+    p.add_argument("--workers", type=int, metavar="N",
+                   help="local worker processes (default: one per core; 1 = in this process)")
+    g = p.add_mutually_exclusive_group()
+    g.add_argument("--scheduler", metavar="ADDRESS",
+                   help="run on a Dask distributed scheduler, e.g. tcp://host:8786")
+    g.add_argument("--scheduler-file", metavar="PATH", help="Dask scheduler file")
+    p.add_argument("--refine", nargs="?", type=int, const=-1, default=0, metavar="ROUNDS",
+                   help="add bisection points near each crossing (default rounds: the sweep "
+                        "file's [refine] rounds, else 3)")
+    p.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
+
+
+def command_line(args) -> int:
+    """``mdgas sweep``: exit 0 when every point is complete, 1 when some failed."""
+    from . import breakdown
+    sw = load(args.sweep)
+    folder = Path(args.output) if args.output else default_folder(sw)
+    if args.workers is not None and args.workers < 1:
+        raise UserError("--workers must be at least 1")
+    if args.dry_run:
+        print(dry_run(sw, folder, args.workers))
+        return 0
+    rounds = sw.refine_rounds if args.refine == -1 else max(0, args.refine)
+    result = run(sw, folder, workers=args.workers, scheduler=args.scheduler,
+                 scheduler_file=args.scheduler_file, refine=rounds,
+                 progress=False if args.quiet else None)
+    print(summary_text(result))
+    crossings = analyse(open_folder(result.folder))
+    print(breakdown.render_text(crossings))
+    print(f"crossings  {result.folder / BREAKDOWN_NAME}")
+    print(f"next: mdgas plot {result.folder}   mdgas report {result.folder}")
+    return 1 if result.failed else 0
