@@ -40,6 +40,19 @@ class Gas:
                               positive=True, kind=float)
     density: float = _opt(0.01, "number density Nσ³/V, V the volume between the wall planes",
                           positive=True, kind=float)
+    # Real gases (mdgas.units, mdgas.species, mdgas.statepoint): quantities with units are
+    # turned into reduced numbers before validation; see units.resolve_quantities.
+    species: str = _opt("", 'preset gas ("argon", "methane", ...): sets σ, ε, m; "" = reduced '
+                        "units", kind=str)
+    sigma: str = _opt("", 'σ with units, e.g. "0.3405 nm" (the diameter for hard spheres); '
+                      "overrides the species", kind=str)
+    epsilon: str = _opt("", 'ε with units, e.g. "119.8 K" (as ε/k) or "0.996 kJ/mol"; '
+                        "overrides the species", kind=str)
+    mass: str = _opt("", 'particle mass with units, e.g. "39.948 g/mol"; overrides the species',
+                     kind=str)
+    pressure: float | None = _opt(None, "requested pressure (ε/σ³ or e.g. \"50 bar\"); when "
+                                  "given, the density is derived from the equation of state",
+                                  positive=True, kind=float)
 
 
 @dataclass(frozen=True)
@@ -54,6 +67,9 @@ class Container:
     wall_sigma: float = _opt(1.0, "9-3 wall length scale σ_w (σ)", positive=True, kind=float)
     wall_cutoff: float = _opt(3.0, "9-3 wall potential cut-off distance (σ)", positive=True,
                               kind=float)
+    pore_width: float | None = _opt(None, 'slit-pore width H between the wall planes (σ or e.g. '
+                                    '"5 nm"); sets walls = "z" and the z edge to H', positive=True,
+                                    kind=float)
 
 
 @dataclass(frozen=True)
@@ -135,6 +151,10 @@ class Settings:
     def box(self) -> np.ndarray:
         """Box edges (σ): the aspect ratios scaled to the volume N/ρ."""
         a = np.asarray(self.container.aspect, dtype=float)
+        h = self.container.pore_width
+        if h is not None:  # slit pore: z edge = H, x:y as aspect, area = V/H
+            area = self.volume / h
+            return np.array([math.sqrt(area * a[0] / a[1]), math.sqrt(area * a[1] / a[0]), h])
         return a * (self.volume / float(np.prod(a))) ** (1.0 / 3.0)
 
     def as_dict(self) -> dict[str, dict[str, Any]]:
@@ -148,6 +168,8 @@ class Settings:
     def replace(self, **overrides: Any) -> "Settings":
         """A copy with ``{"gas.density": 0.05, ...}``-style overrides, re-validated."""
         raw = self.as_dict()
+        from .units import forget_derived
+        forget_derived(raw, overrides)
         apply_overrides(raw, overrides, self.source)
         return from_dict(raw, source=self.source, text=self.text)
 
@@ -229,6 +251,8 @@ def from_dict(raw: Mapping[str, Any], source: str = "<dict>", text: str = "",
     """
     if not isinstance(raw, Mapping):
         raise ConfigError(source, "", "the config must be a table of sections")
+    from .units import resolve_quantities
+    raw = resolve_quantities(raw, source, derive=check_model)
     sections: dict[str, Any] = {}
     for name, value in raw.items():
         _check_section_name(name, source)
