@@ -286,12 +286,20 @@ def _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
 # The chunk ----------------------------------------------------------------------------
 
 @njit(cache=True)
-def cell_grid(box, walled):
-    """Cells per axis (side >= σ with a hair to spare) and their sides (σ)."""
+def cell_grid(box, walled, n):
+    """Cells per axis and their sides (σ): side >= σ (with a hair to spare), larger in
+    dilute gases so that a cell holds about 1/8 particle on average — fewer crossing
+    events, and the cell count stays near 8 N however dilute the gas. A periodic axis
+    keeps at least 3 cells (its edge is >= 3 σ, checked in ``validate``)."""
     nc = np.empty(3, dtype=np.int64)
     cs = np.empty(3)
+    volume = box[0] * box[1] * box[2]
+    side = max(1.0, (volume / (8.0 * n)) ** (1.0 / 3.0))
     for d in range(3):
-        nc[d] = max(1, int(math.floor(box[d] * (1.0 - 1e-12))))
+        k = int(math.floor(box[d] / side * (1.0 - 1e-12)))
+        if not walled[d]:
+            k = max(k, 3)
+        nc[d] = max(1, min(k, int(math.floor(box[d] * (1.0 - 1e-12)))))
         cs[d] = box[d] / nc[d]
     return nc, cs
 
@@ -305,7 +313,7 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
     number of events of every kind (STEPS). Returns the number of pair collisions.
     """
     n = pos.shape[0]
-    nc, cs = cell_grid(box, walled)
+    nc, cs = cell_grid(box, walled, n)
     ncell = nc[0] * nc[1] * nc[2]
     P = np.empty((n, 8))
     cell = np.empty((n, 3), dtype=np.int64)
@@ -472,7 +480,7 @@ def random_placement(n, lo, hi, box, walled, rng, max_tries):
 
     Returns the positions and the number placed (< n when ``max_tries`` ran out).
     """
-    nc, cs = cell_grid(box, walled)
+    nc, cs = cell_grid(box, walled, n)
     head = np.full(nc[0] * nc[1] * nc[2], -1, dtype=np.int64)
     nxt = np.full(n, -1, dtype=np.int64)
     pos = np.zeros((n, 3))
@@ -538,7 +546,7 @@ def min_pair_distance(pos, box, walled):
     (returns at most the cell side, or inf when no pair is that close).
     """
     n = pos.shape[0]
-    nc, cs = cell_grid(box, walled)
+    nc, cs = cell_grid(box, walled, n)
     head = np.full(nc[0] * nc[1] * nc[2], -1, dtype=np.int64)
     nxt = np.full(n, -1, dtype=np.int64)
     cell = np.empty((n, 3), dtype=np.int64)
@@ -585,6 +593,30 @@ def _centre_bounds(box: np.ndarray, walled: np.ndarray) -> tuple[np.ndarray, np.
     return lo, hi
 
 
+def lattice_start(n: int, box: np.ndarray, walled: np.ndarray,
+                  rng: np.random.Generator | None = None) -> np.ndarray:
+    """fcc sites for ``n`` centres, stretched on walled axes so that the outer layers
+    touch the contact planes at σ/2 (``start.lattice_positions`` keeps a quarter cell
+    clear at each end, which would waste room between walls)."""
+    lo, hi = _centre_bounds(box, walled)
+    sites = lattice_positions(n, lo, hi)
+    if not walled.any():
+        return sites if rng is None else lattice_positions(n, lo, hi, rng)
+    # k cells along an axis put 2k distinct coordinates there; a stretch δ per end with
+    # δ = a/4 and a = (span + 2δ)/k gives δ = span/(4k - 2). One δ for every walled
+    # axis (the smallest) keeps equal edges equal, so the lattice keeps its cell counts.
+    k = np.array([len(np.unique(np.round(sites[:, a], 9))) // 2 for a in range(3)])
+    need = ((hi - lo) / np.maximum(4 * k - 2, 1))[walled]
+    delta = np.where(walled, need.min() * (1.0 - 1e-9), 0.0)
+    wide = lattice_positions(n, lo - delta, hi + delta)
+    if rng is not None:
+        wide = lattice_positions(n, lo - delta, hi + delta, rng)
+    if ((wide < lo).any() or (wide > hi).any()
+            or min_pair_distance(wide, box, walled) < min_pair_distance(sites, box, walled)):
+        return sites if rng is None else lattice_positions(n, lo, hi, rng)
+    return wide
+
+
 def start_method(settings) -> str:
     """"random" (sequential placement) or "lattice" (fcc, melted in equilibration)."""
     eta_acc = packing_fraction(settings.gas.particles
@@ -616,12 +648,13 @@ class HardSpheres(Engine):
         box = settings.box
         for axis, (L, w) in enumerate(zip(box, settings.walled)):
             need = MIN_WALLED_EDGE if w else MIN_PERIODIC_EDGE
-            if L < need:
+            # a periodic edge of exactly 3 σ would leave only 2 cells of side >= σ
+            if L < need or (not w and L * (1.0 - 1e-12) < need):
                 kind = "walled" if w else "periodic"
                 raise ConfigError(
                     src, "gas.particles",
                     f"the box edge along {'xyz'[axis]} is {L:.3g} σ, too small for hard spheres "
-                    f"(a {kind} edge needs >= {need:g} σ)",
+                    f"(a {kind} edge needs {'more than' if not w else 'at least'} {need:g} σ)",
                     "use more particles, a lower density or a less elongated container.aspect")
         if eta >= FREEZING_ETA:
             warnings.warn(
@@ -629,9 +662,9 @@ class HardSpheres(Engine):
                 f"({FREEZING_ETA}-{MELTING_ETA}, Hoover & Ree 1968): the fluid is metastable"
                 " and may crystallise; the lattice start may not melt", stacklevel=2)
         if start_method(settings) == "lattice":
-            lo, hi = _centre_bounds(box, np.array(settings.walled))
-            sites = lattice_positions(settings.gas.particles, lo, hi)
-            dmin = min_pair_distance(sites, box, np.array(settings.walled, dtype=np.bool_))
+            walled = np.array(settings.walled, dtype=np.bool_)
+            sites = lattice_start(settings.gas.particles, box, walled)
+            dmin = min_pair_distance(sites, box, walled)
             if dmin < 1.0:
                 raise ConfigError(
                     src, "gas.density",
@@ -652,9 +685,9 @@ class HardSpheres(Engine):
             pos, placed = random_placement(n, lo, hi, self.box, self.walled,
                                            seed_state(s.schedule.seed, stream=2), 200 * n + 10000)
             if placed < n:
-                pos = lattice_positions(n, lo, hi, rng)
+                pos = lattice_start(n, self.box, self.walled, rng)
         else:
-            pos = lattice_positions(n, lo, hi, rng)
+            pos = lattice_start(n, self.box, self.walled, rng)
         vel = maxwell_boltzmann(rng, n, s.gas.temperature, periodic=s.container.walls == "none")
         return {"positions": np.ascontiguousarray(pos), "velocities": vel, "time": np.zeros(1),
                 "rng": seed_state(s.schedule.seed, stream=1)}
