@@ -6,13 +6,14 @@ that carry uncertainty are ``{"mean": x, "stderr": s}`` in the JSON form.
 
 from __future__ import annotations
 
+import dataclasses
 from typing import Any
 
 import numpy as np
 
 from ..config import FACES
-from . import distributions
-from .statistics import MIN_INDEPENDENT, Estimate, estimate, ratio
+from . import distributions, verdict as _verdict
+from .statistics import MIN_INDEPENDENT, Estimate, estimate, ratio, ratio_series
 
 
 def _face_estimates(run) -> dict[str, Estimate]:
@@ -44,12 +45,70 @@ def measured_pressure(run) -> tuple[str, Estimate]:
     return "virial", estimate(pv)
 
 
+def pressure_series(run) -> tuple[str, np.ndarray]:
+    """(source, per-sample pressure) behind Z: walled faces' mean, else the virial."""
+    faces = [k for k in range(6) if run.settings.walled[k // 2]]
+    if faces:
+        _, pw = run.series("pressure_wall")
+        return "wall", pw[:, faces].mean(axis=1)
+    _, pv = run.series("pressure_virial")
+    return "virial", np.asarray(pv, dtype=float)
+
+
 def compressibility(run) -> Estimate:
-    """Z = P / (ρ kT) with the measured mean kinetic temperature."""
-    _, p = measured_pressure(run)
+    """Z = <P> / (ρ <kT>) with the measured kinetic temperature.
+
+    The error keeps the correlation of pressure and temperature samples
+    (:func:`mdgas.analysis.statistics.ratio_series`).
+    """
+    _, p = pressure_series(run)
     _, temp = run.series("temperature")
-    t = estimate(temp)
-    return ratio(p, t, 1.0 / run.settings.gas.density)
+    return ratio_series(p, temp, 1.0 / run.settings.gas.density)
+
+
+def si_state(run, t: Estimate, p: Estimate) -> dict[str, Any] | None:
+    """SI values of the measured state when the run is mapped onto a real gas, else None.
+
+    Hook for the units module: uses ``mdgas.units.system_of(settings)`` (None for a run
+    in reduced units) and ``mdgas.units.to_si``; the species' CoolProp name (from
+    ``mdgas.species``) enables the real-fluid reference.
+    """
+    try:
+        from .. import units as _units
+        system_of, to_si = _units.system_of, _units.to_si
+    except (ImportError, AttributeError):
+        return None
+    us = system_of(run.settings)
+    if us is None:
+        return None
+    s = run.settings
+
+    def conv(kind: str, e: Estimate) -> dict[str, float | None]:
+        f = to_si(us, kind, 1.0)[0]
+        return {"mean": e.mean * f, "stderr": e.stderr * f if np.isfinite(e.stderr) else None}
+
+    rho_mol = to_si(us, "molar_density", s.gas.density)[0]
+    out: dict[str, Any] = {
+        "species": getattr(us, "species", ""),
+        "sigma_m": us.sigma, "epsilon_over_k_K": to_si(us, "temperature", 1.0)[0],
+        "temperature_set_K": to_si(us, "temperature", s.gas.temperature)[0],
+        "temperature_K": conv("temperature", t),
+        "pressure_Pa": conv("pressure", p),
+        "density_mol_m3": rho_mol,
+        "mass_density_kg_m3": to_si(us, "mass_density", s.gas.density)[0],
+        "real_fluid": None,
+    }
+    fluid = ""
+    if out["species"]:
+        try:
+            from .. import species as _species
+            fluid = getattr(_species.get(out["species"]), "coolprop", "")
+        except (ImportError, AttributeError):
+            fluid = ""
+    if fluid:
+        out["real_fluid"] = {"fluid": fluid, "temperature_K": out["temperature_set_K"],
+                             "density_mol_m3": rho_mol}
+    return out
 
 
 def collision_figures(run) -> dict[str, Any]:
@@ -77,7 +136,18 @@ def collision_figures(run) -> dict[str, Any]:
 
 
 def summarize(run) -> dict[str, Any]:
-    """The summary as a JSON-ready dict (see README, "Summary keys")."""
+    """The summary as a JSON-ready dict (see README, "Summary keys").
+
+    Production samples before the detected end of equilibration are left out of every
+    estimate; the verdict, the references and the self-checks are added last.
+    """
+    cut = _verdict.equilibration_cut(run)
+    if cut["dropped_samples"]:
+        full_run = run
+        run = dataclasses.replace(run, meta={**run.meta,
+                                             "production_start": cut["detected_start"]})
+    else:
+        full_run = run
     s = run.settings
     _, temp = run.series("temperature")
     _, hits = run.series("wall_hits")
@@ -116,7 +186,40 @@ def summarize(run) -> dict[str, Any]:
         "warnings": warnings,
     }
     out.update(collision_figures(run))
+    out.update(_assessment(run, full_run, out, t_est, p_est, z, kind, n_eff, cut))
     return out
+
+
+def _assessment(run, full_run, out, t_est, p_est, z, kind, n_eff, cut) -> dict[str, Any]:
+    """The verdict, the references and the self-checks (summary keys of the same name)."""
+    s = run.settings
+    shift = _verdict.tail_shift(run, kind)
+    z_model = Estimate(z.mean + shift, z.stderr, z.n_eff)
+    extra: dict[str, Any] = {}
+    if shift:
+        extra["Z_measured"] = z.as_json()
+        extra["Z"] = z_model.as_json()
+        extra["tail_correction_Z"] = shift
+        out["warnings"].append(
+            f"Z includes the analytic LJ tail correction {shift:+.4g} (the wall pressure "
+            "of the truncated potential does not carry it)")
+    si = si_state(run, t_est, p_est)
+    refs, skipped = _verdict.compare(run, z_model, si["real_fluid"] if si else None,
+                                     temperature=t_est.mean)
+    checks, checks_skipped = _verdict.self_checks(run, t_est, n_eff, cut)
+    for name, c in checks.items():
+        if c["status"] != "pass":
+            out["warnings"].append(f"self-check {name}: {c['status']}: {c['detail']}")
+    extra.update({
+        "verdict": _verdict.verdict(z_model, s.analysis.tolerance),
+        "references": refs,
+        "references_skipped": skipped,
+        "checks": checks,
+        "checks_skipped": checks_skipped,
+        "equilibration": cut,
+        "si": si,
+    })
+    return extra
 
 
 def _pm(e: dict | None, digits: int = 4) -> str:
@@ -151,6 +254,41 @@ def render_text(summary: dict[str, Any]) -> str:
     if sd:
         lines.append(f"speeds    KS vs Maxwell-Boltzmann: D = {sd['ks_statistic']:.4f}, "
                      f"p = {sd['p_value']:.3f}")
+    lines += _render_assessment(s)
     for w in s["warnings"]:
         lines.append(f"warning   {w}")
     return "\n".join(lines)
+
+
+_MARK = {"pass": "pass", "warn": "WARN", "fail": "FAIL"}
+
+
+def _render_assessment(s: dict[str, Any]) -> list[str]:
+    lines: list[str] = []
+    si = s.get("si")
+    if si:
+        t, p = si["temperature_K"], si["pressure_Pa"]
+        lines.append(f"SI        {si['species'] or 'mapped gas'}: T = {t['mean']:.4g} K, "
+                     f"P = {p['mean'] / 1e5:.4g} ± {(p['stderr'] or 0) / 1e5:.2g} bar, "
+                     f"ρ = {si['density_mol_m3'] / 1e3:.4g} mol/L")
+    v = s.get("verdict")
+    if v:
+        lines.append("")
+        lines.append(f"verdict   {v['statement']}")
+    refs = s.get("references") or {}
+    if refs:
+        lines.append("references (Z, and how many stderr the measurement lies above it)")
+        for name, r in refs.items():
+            sig = "n/a" if r["sigma_away"] is None else f"{r['sigma_away']:+.1f}"
+            flag = "" if r.get("in_range", True) else "  (outside its range)"
+            lines.append(f"  {name:<22} Z = {r['Z']:.5g}   {sig} σ{flag}")
+    for name, why in (s.get("references_skipped") or {}).items():
+        lines.append(f"  {name:<22} skipped: {why}")
+    checks = s.get("checks") or {}
+    if checks:
+        lines.append("self-checks")
+        for name, c in checks.items():
+            lines.append(f"  {_MARK[c['status']]:<5} {name:<18} {c['detail']}")
+    for name, why in (s.get("checks_skipped") or {}).items():
+        lines.append(f"  --    {name:<18} not applicable: {why}")
+    return lines
