@@ -433,25 +433,57 @@ def result_columns(summary: Mapping[str, Any]) -> dict[str, Any]:
     }
 
 
+#: True inside a local worker process (set by its initializer).
+_IN_WORKER = False
+
+
 def execute_point(settings: config.Settings, path: str) -> dict[str, Any]:
     """Run one state point to its run file and return its status and result columns.
 
-    A failure of this point (instability, a bad value only the engine rejects) is
-    returned as ``status = "failed"`` with the message, never raised, so the sweep goes
-    on. Top-level so that process pools and Dask can ship it.
+    An interrupted run left by an earlier attempt is resumed from its checkpoint
+    (bit-exact), anything else incomplete is run afresh. A failure of this point
+    (instability, a bad value only the engine rejects) is returned as ``status =
+    "failed"`` with the message, never raised, so the sweep goes on. Top-level so that
+    process pools and Dask can ship it.
     """
-    from .driver import simulate
+    from .driver import resume, simulate
+    from .errors import RunInterrupted
     from .run import load as load_run
     t0 = time.monotonic()
     try:
-        simulate(settings, path, force=True, progress=False)
+        try:
+            if not _resumable(Path(path)):
+                raise FileNotFoundError(path)
+            resume(path, progress=False)
+        except RunInterrupted:
+            raise
+        except (UserError, OSError):  # no usable checkpoint: start this point again
+            simulate(settings, path, force=True, progress=False)
         summary = load_run(path).summary()
         row = {"status": summary.get("status", "complete"), "message": ""}
         row.update(result_columns(summary))
+    except RunInterrupted as exc:
+        if not _IN_WORKER:
+            raise  # in the sweep process itself: the whole sweep stops
+        row = {"status": "interrupted", "message": str(exc)}
     except Exception as exc:  # one bad point must not stop the others
         row = {"status": "failed", "message": f"{exc.__class__.__name__}: {exc}"}
     row["wall_seconds"] = time.monotonic() - t0
     return row
+
+
+def _resumable(path: Path) -> bool:
+    """A run file an earlier attempt left interrupted or running (killed)."""
+    from . import store
+    if not path.is_file():
+        return False
+    try:
+        with store.open_run_file(path) as f:
+            status = f["mdgas"].attrs.get("status")
+    except Exception:  # damaged beyond reading: not resumable
+        return False
+    status = status.decode() if isinstance(status, bytes) else status
+    return status in (store.STATUS_INTERRUPTED, store.STATUS_RUNNING)
 
 
 def existing_result(path: Path) -> dict[str, Any] | None:
@@ -490,6 +522,8 @@ def _seconds_between(a: Any, b: Any) -> float | None:
 
 def _worker_init(threads: int) -> None:
     """Per worker process: numba threads, no Ctrl-C of its own, die with the sweep."""
+    global _IN_WORKER
+    _IN_WORKER = True
     os.environ["NUMBA_NUM_THREADS"] = str(threads)
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the sweep process handles Ctrl-C
     try:  # Linux: an orphaned worker must not go on writing a run file a rerun will redo
@@ -549,7 +583,7 @@ class LocalExecutor:
                     reported.add(fut)
                     on_result(futures[fut][0], row)
             except BaseException:
-                _stop_pool(pool)
+                _stop_pool(pool, futures, reported, on_result)
                 raise
             pool.shutdown(wait=True)
 
@@ -574,15 +608,25 @@ class LocalExecutor:
         return again
 
 
-def _stop_pool(pool) -> None:
-    """End the pool's worker processes now (Ctrl-C): their runs stay incomplete, to be redone."""
+def _stop_pool(pool, futures, reported, on_result) -> None:
+    """Stop the workers on Ctrl-C. A terminal's Ctrl-C reaches them too and the driver
+    stops each run after its chunk with a checkpoint; give them a moment, then SIGTERM
+    (the driver's clean stop again), then SIGKILL. Results that arrive are kept."""
+    import concurrent.futures as cf
     procs = list(getattr(pool, "_processes", {}).values())
     pool.shutdown(wait=False, cancel_futures=True)
+    cf.wait([f for f in futures if not f.cancelled()], timeout=3.0)
     for p in procs:
         if p.is_alive():
             p.terminate()
     for p in procs:
-        p.join(timeout=5)
+        p.join(timeout=10)
+        if p.is_alive():
+            p.kill()
+    cf.wait([f for f in futures if not f.cancelled()], timeout=2.0)  # clean stops' rows
+    for f, job in futures.items():
+        if f.done() and not f.cancelled() and f.exception() is None and f not in reported:
+            on_result(job[0], f.result())
 
 
 class DaskExecutor:
@@ -797,10 +841,11 @@ def _run_points(sweep: Sweep, folder: Path, executor, result: SweepResult,
         bar.update(counts["done"] + counts["failed"],
                    f"{counts['done']} done, {counts['failed']} failed")
 
+    from .errors import RunInterrupted
     try:
         bar.update(0, "starting")
         executor.run(jobs, on_result)
-    except KeyboardInterrupt:
+    except (KeyboardInterrupt, RunInterrupted):
         result.interrupted = True
         for r in result.rows:
             if r["status"] == STATUS_PENDING:
@@ -808,7 +853,11 @@ def _run_points(sweep: Sweep, folder: Path, executor, result: SweepResult,
         write_table(result)
         write_index(result)
         bar.close()
-        raise
+        done = sum(r["status"] == "complete" for r in result.rows)
+        raise RunInterrupted(
+            f"sweep {sweep.name!r} interrupted with {done} of {len(result.rows)} run(s) "
+            f"complete; the table is written ({result.table_path}); run the same "
+            "`mdgas sweep` again to continue") from None
     bar.close()
     write_index(result)
 
