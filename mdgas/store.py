@@ -163,6 +163,7 @@ class RunWriter:
                 g.attrs[k] = "" if v is None else v
             g.attrs["_unset"] = np.array([k for k, v in values.items() if v is None],
                                          dtype=h5py.string_dtype())
+        write_unit_system(par, s)
 
         m = f.create_group("mdgas")
         m.attrs["layout_version"] = LAYOUT_VERSION
@@ -318,6 +319,25 @@ class RunWriter:
     def close(self) -> None:
         if self.file.id.valid:
             self.file.close()
+
+
+#: parameters/<UNITS_GROUP>: the unit system of the run (not a config section).
+UNITS_GROUP = "units"
+
+
+def write_unit_system(par: h5py.Group, settings) -> None:
+    """parameters/units attrs: system "reduced", or "SI" with σ, ε, m and constants."""
+    from .units import unit_attrs
+    g = par.create_group(UNITS_GROUP)
+    for k, v in unit_attrs(settings).items():
+        g.attrs[k] = v
+
+
+def read_unit_system(path: str | os.PathLike) -> dict[str, Any]:
+    """The parameters/units attrs of a run file ({} for files written before it existed)."""
+    with open_run_file(path) as f:
+        g = f.get(f"parameters/{UNITS_GROUP}")
+        return {k: _plain(v) for k, v in g.attrs.items()} if g is not None else {}
 
 
 def _write_arrays(group: h5py.Group, arrays: dict[str, np.ndarray]) -> None:
@@ -490,7 +510,7 @@ def _read_open(f: h5py.File, damage: list[str], valid: int | None) -> dict[str, 
                            "cannot be interpreted; run the config again")
     params = {}
     for section, g in f["parameters"].items():
-        if isinstance(g, h5py.Group):
+        if isinstance(g, h5py.Group) and section != UNITS_GROUP:
             unset = set(_plain(g.attrs.get("_unset", [])))
             params[section] = {k: (None if k in unset else _plain(v))
                                for k, v in g.attrs.items() if k != "_unset"}

@@ -103,7 +103,7 @@ class UnitSystem:
 
     def attrs(self) -> dict[str, Any]:
         """The unit system as flat attributes (for the run file's parameters/units)."""
-        return {"species": self.species, "source": self.source,
+        return {"system": "SI", "species": self.species, "source": self.source,
                 "sigma_m": self.sigma, "epsilon_J": self.epsilon, "mass_kg": self.mass,
                 "epsilon_over_k_K": self.epsilon / K_B, "molar_mass_kg_mol": self.mass * N_A,
                 "time_s": self.time, "pressure_Pa": self.factor("pressure"),
@@ -357,6 +357,18 @@ def forget_derived(raw: dict[str, Any], overrides: Mapping[str, Any]) -> None:
 
 
 # -- SI output ------------------------------------------------------------------------
+
+#: parameters/units of a run in reduced units (no species, no gas.sigma).
+REDUCED_ATTRS = {"system": "reduced",
+                 "note": "lengths σ, energies ε, mass m, T as kT/ε, time σ sqrt(m/ε), "
+                         "pressure ε/σ³, density Nσ³/V; no SI scale was given"}
+
+
+def unit_attrs(settings) -> dict[str, Any]:
+    """What the run file stores under parameters/units for these settings."""
+    us = system_of(settings)
+    return dict(REDUCED_ATTRS) if us is None else us.attrs()
+
 
 def system_of(settings) -> UnitSystem | None:
     """The unit system of validated settings, or None when the run is in reduced units."""
