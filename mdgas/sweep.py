@@ -633,7 +633,7 @@ class DaskExecutor:
     """State points as tasks on a Dask distributed cluster (workers must share the folder)."""
 
     def __init__(self, address: str | None = None, scheduler_file: str | None = None,
-                 client=None) -> None:
+                 client=None, timeout: float = 30.0) -> None:
         try:
             import distributed
         except ImportError:
@@ -644,7 +644,7 @@ class DaskExecutor:
         else:
             try:
                 self.client = distributed.Client(address=address, scheduler_file=scheduler_file,
-                                                 timeout=30)
+                                                 timeout=timeout)
             except (OSError, TimeoutError, ValueError) as exc:
                 where = address or scheduler_file
                 raise UserError(f"cannot reach the Dask scheduler at {where} ({exc}); "
