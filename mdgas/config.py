@@ -77,6 +77,9 @@ class Potential:
     cutoff: float = _opt(3.0, "Lennard-Jones cut-off radius r_c (σ)", positive=True, kind=float)
     tail: str = _opt("corrected", "tail treatment beyond r_c", choices=("shifted", "corrected"))
     skin: float = _opt(0.3, "Verlet neighbour-list skin (σ)", positive=True, kind=float)
+    neighbour_list: str = _opt("auto", 'neighbour-list kind: "full" (fast for dense fluids), '
+                               '"half" (fast for gases), "auto" (full above ρ = 0.3)',
+                               choices=("auto", "full", "half"))
 
 
 @dataclass(frozen=True)

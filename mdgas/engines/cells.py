@@ -1,0 +1,234 @@
+"""Cell lists, cell sorting and Verlet neighbour lists shared by the engines.
+
+Geometry: the box is [0, L_a] per axis; an axis is periodic (minimum image) or walled
+(closed, no images). Periodic images are handled branch-free with two per-axis arrays,
+``lp`` (L on periodic axes, 0 on walled ones) and ``ilp`` (1/L or 0), so that
+``d -= lp * rint(d * ilp)`` is the minimum image on periodic axes and a no-op on
+walled ones. Lengths in σ.
+
+Cells are at least ``rlist`` wide, so every neighbour within ``rlist`` lies in the 27
+cells around a particle's own. Particles are sorted by cell index (z fastest) before a
+list is built: the three cells along z of one (x, y) row are then one contiguous run
+of particle indices (a "strip"), which the builder scans into a distance buffer and
+filters, and neighbours sit close together in memory for the force loop.
+
+The neighbour list is a fixed-stride table ``nbr`` (N, capacity) of int32 with a count
+per particle ``count`` (N,): rows can be filled in parallel without a prefix sum, and
+the arrays are self-describing (capacity is ``nbr.shape[1]``). A *full* list holds
+every neighbour of i; a *half* list only those j > i (each pair once).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit, prange
+
+
+def image_arrays(box: np.ndarray, walled) -> tuple[np.ndarray, np.ndarray]:
+    """(lp, ilp): L and 1/L on periodic axes, 0 on walled ones (see module doc)."""
+    lp = np.array([0.0 if w else float(L) for L, w in zip(box, walled)])
+    ilp = np.array([0.0 if w else 1.0 / float(L) for L, w in zip(box, walled)])
+    return lp, ilp
+
+
+def cell_grid(box: np.ndarray, rlist: float) -> tuple[np.ndarray, np.ndarray]:
+    """(cells per axis (3,) int64, inverse cell width (3,)) for cells >= ``rlist`` wide."""
+    nc = np.maximum(1, np.floor(np.asarray(box, dtype=float) / rlist)).astype(np.int64)
+    return nc, nc / np.asarray(box, dtype=float)
+
+
+@njit(cache=True, error_model="numpy")
+def cell_of(x, y, z, inv_width, ncell):
+    """Flat cell index (z fastest) of a point in the box; points on the upper face go to
+    the last cell. Coordinates are non-negative, so truncation is a floor."""
+    cx = min(int(x * inv_width[0]), ncell[0] - 1)
+    cy = min(int(y * inv_width[1]), ncell[1] - 1)
+    cz = min(int(z * inv_width[2]), ncell[2] - 1)
+    return (cx * ncell[1] + cy) * ncell[2] + cz
+
+
+@njit(cache=True, error_model="numpy")
+def sort_by_cell(pos, inv_width, ncell, cell_start, order, cell_tmp):
+    """Counting sort of particles by cell.
+
+    Fills ``order`` (N,) with the old index of the particle that goes to each new slot
+    (stable: equal cells keep their old order) and ``cell_start`` (ncells + 1,) with the
+    first new slot of every cell. ``cell_tmp`` (N,) int64 is scratch.
+    """
+    n = pos.shape[0]
+    ncells = cell_start.shape[0] - 1
+    cell_start[:] = 0
+    for i in range(n):
+        c = cell_of(pos[i, 0], pos[i, 1], pos[i, 2], inv_width, ncell)
+        cell_tmp[i] = c
+        cell_start[c + 1] += 1
+    for c in range(ncells):
+        cell_start[c + 1] += cell_start[c]
+    fill = cell_start[:-1].copy()
+    for i in range(n):
+        c = cell_tmp[i]
+        order[fill[c]] = i
+        fill[c] += 1
+
+
+@njit(cache=True, parallel=True, error_model="numpy")
+def permute_rows(arr, order, tmp):
+    """arr[k] <- arr[order[k]] for an (N, 3) array, through the (N, 3) scratch ``tmp``."""
+    n = arr.shape[0]
+    for k in prange(n):
+        j = order[k]
+        tmp[k, 0] = arr[j, 0]
+        tmp[k, 1] = arr[j, 1]
+        tmp[k, 2] = arr[j, 2]
+    for k in prange(n):
+        arr[k, 0] = tmp[k, 0]
+        arr[k, 1] = tmp[k, 1]
+        arr[k, 2] = tmp[k, 2]
+
+
+@njit(cache=True, error_model="numpy")
+def _axis_cells(c, n, periodic, out):
+    """Distinct neighbour cell coordinates along one axis (-1, 0, +1 with wrap or clip);
+    with fewer than 3 periodic cells every cell once. Returns how many were written."""
+    m = 0
+    if periodic and n < 3:
+        for k in range(n):
+            out[m] = k
+            m += 1
+        return m
+    for d in range(-1, 2):
+        k = c + d
+        if k < 0:
+            if not periodic:
+                continue
+            k += n
+        elif k >= n:
+            if not periodic:
+                continue
+            k -= n
+        out[m] = k
+        m += 1
+    return m
+
+
+@njit(cache=True, error_model="numpy")
+def _z_runs(c, n, periodic, lo, hi):
+    """Contiguous runs [lo, hi] of neighbour cell coordinates along z; returns the count
+    (one run, or two where the periodic wrap splits it)."""
+    if periodic and n < 3:
+        lo[0], hi[0] = 0, n - 1
+        return 1
+    if not periodic:
+        lo[0], hi[0] = max(c - 1, 0), min(c + 1, n - 1)
+        return 1
+    if c == 0:
+        lo[0], hi[0], lo[1], hi[1] = 0, 1, n - 1, n - 1
+        return 2
+    if c == n - 1:
+        lo[0], hi[0], lo[1], hi[1] = 0, 0, n - 2, n - 1
+        return 2
+    lo[0], hi[0] = c - 1, c + 1
+    return 1
+
+
+@njit(cache=True, parallel=True, error_model="numpy")
+def build_neighbour_list(pos, lp, ilp, ncell, cell_start, rlist2, half, nbr, count):
+    """Fill ``nbr``/``count`` with the pairs closer than sqrt(rlist2), from cell-sorted
+    positions (``cell_start`` from :func:`sort_by_cell`).
+
+    ``half`` keeps only j > i. Rows longer than the capacity are counted but not
+    stored; the return value is the longest row, so the caller can grow ``nbr`` and
+    build again when it exceeds ``nbr.shape[1]``.
+    """
+    n = pos.shape[0]
+    cap = nbr.shape[1]
+    nx, ny, nz = ncell[0], ncell[1], ncell[2]
+    ncells = nx * ny * nz
+    px, py, pz = lp[0] > 0.0, lp[1] > 0.0, lp[2] > 0.0
+    longest = 0
+    for c in range(ncells):
+        longest = max(longest, cell_start[c + 1] - cell_start[c])
+    buf_len = 3 * longest + 1
+    nchunk = min(ncells, 64 * max(1, n // 4096 + 1))
+    widest = 0
+    for t in prange(nchunk):
+        buf = np.empty(buf_len)
+        xs = np.empty(3, np.int64)
+        ys = np.empty(3, np.int64)
+        zlo = np.empty(2, np.int64)
+        zhi = np.empty(2, np.int64)
+        local_widest = 0
+        for c in range(t * ncells // nchunk, (t + 1) * ncells // nchunk):
+            if cell_start[c + 1] == cell_start[c]:
+                continue
+            cz = c % nz          # c >= 0: plain modulo is safe here
+            cy = (c // nz) % ny
+            cx = c // (ny * nz)
+            mx = _axis_cells(cx, nx, px, xs)
+            my = _axis_cells(cy, ny, py, ys)
+            mz = _z_runs(cz, nz, pz, zlo, zhi)
+            for i in range(cell_start[c], cell_start[c + 1]):
+                xi, yi, zi = pos[i, 0], pos[i, 1], pos[i, 2]
+                m = 0
+                for a in range(mx):
+                    for b in range(my):
+                        row = (xs[a] * ny + ys[b]) * nz
+                        for r in range(mz):
+                            lo = cell_start[row + zlo[r]]
+                            hi = cell_start[row + zhi[r] + 1]
+                            if half and lo <= i:
+                                lo = i + 1
+                            if hi <= lo:
+                                continue
+                            for j in range(lo, hi):   # vectorisable: no branches
+                                dx = xi - pos[j, 0]
+                                dy = yi - pos[j, 1]
+                                dz = zi - pos[j, 2]
+                                dx -= lp[0] * np.rint(dx * ilp[0])
+                                dy -= lp[1] * np.rint(dy * ilp[1])
+                                dz -= lp[2] * np.rint(dz * ilp[2])
+                                buf[j - lo] = dx * dx + dy * dy + dz * dz
+                            for j in range(lo, hi):
+                                if buf[j - lo] < rlist2 and j != i:
+                                    if m < cap:
+                                        nbr[i, m] = j
+                                    m += 1
+                count[i] = min(m, cap)
+                local_widest = max(local_widest, m)
+        widest = max(widest, local_widest)
+    return widest
+
+
+@njit(cache=True, error_model="numpy")
+def max_displacement_pair(pos, ref, lp, ilp):
+    """Sum of the two largest displacements since ``ref`` (σ), minimum-imaged.
+
+    The list stays valid while this is below the skin: no pair can then have closed
+    in by more than the skin since the build.
+    """
+    d1 = 0.0
+    d2 = 0.0
+    for i in range(pos.shape[0]):
+        dx = pos[i, 0] - ref[i, 0]
+        dy = pos[i, 1] - ref[i, 1]
+        dz = pos[i, 2] - ref[i, 2]
+        dx -= lp[0] * np.rint(dx * ilp[0])
+        dy -= lp[1] * np.rint(dy * ilp[1])
+        dz -= lp[2] * np.rint(dz * ilp[2])
+        s = dx * dx + dy * dy + dz * dz
+        if s > d2:
+            if s > d1:
+                d2 = d1
+                d1 = s
+            else:
+                d2 = s
+    return math.sqrt(d1) + math.sqrt(d2)
+
+
+def list_capacity(density: float, rlist: float, half: bool) -> int:
+    """A starting row capacity: the mean full-list row plus generous room for
+    fluctuations (rows grow automatically when a build finds more)."""
+    mean = density * 4.0 / 3.0 * math.pi * rlist ** 3
+    return int(math.ceil(1.3 * mean + 6.0 * math.sqrt(mean + 1.0) + 8.0))

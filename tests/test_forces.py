@@ -1,0 +1,194 @@
+"""Lennard-Jones forces, neighbour lists and walls against independent calculations."""
+
+from __future__ import annotations
+
+import copy
+
+import numpy as np
+import pytest
+
+from mdgas import config
+from mdgas.engines import get_engine
+from mdgas.engines.cells import (build_neighbour_list, cell_grid, image_arrays,
+                                 sort_by_cell)
+from mdgas.engines.verlet import lj_pair, pair_forces_brute, tail_corrections
+from mdgas.engines.walls import lj93_minimum, lj93_potential
+from mdgas.observe import new_accumulator
+
+LJ = get_engine("lennard-jones")
+
+
+def lj_settings(**keys):
+    raw = {"gas": {"model": "lennard-jones", "particles": 300, "density": 0.7,
+                   "temperature": 1.0},
+           "container": {"walls": "none"},
+           "schedule": {"equilibrate": 1.0, "produce": 2.0}}
+    for dotted, value in keys.items():
+        sec, key = dotted.split("__")
+        raw.setdefault(sec, {})[key] = value
+    return config.from_dict(raw)
+
+
+def shaken(engine, seed=3, amount=0.15):
+    """An initial state with positions displaced randomly, then re-prepared."""
+    st = engine.initial_state()
+    rng = np.random.default_rng(seed)
+    pos = st["positions"] + rng.uniform(-amount, amount, st["positions"].shape)
+    for a in range(3):
+        if engine.walled[a]:
+            pos[:, a] = np.clip(pos[:, a], 0.8, engine.box[a] - 0.8)
+        else:
+            pos[:, a] %= engine.box[a]
+    st["positions"][:] = pos
+    st["list_reference"][:] = 1e9          # forces a rebuild on the next step
+    return st
+
+
+def brute(engine, pos):
+    f = np.zeros_like(pos)
+    u, wx, wy, wz = pair_forces_brute(pos, engine.lp, engine.ilp, engine.fpar[1],
+                                      engine.fpar[2], f)
+    return f, u, np.array([wx, wy, wz])
+
+
+@pytest.mark.parametrize("mode", ["full", "half"])
+@pytest.mark.parametrize("walls", ["none", "z"])
+def test_list_forces_equal_brute_force(mode, walls):
+    s = lj_settings(potential__neighbour_list=mode, container__walls=walls,
+                    potential__tail="shifted", gas__particles=400)
+    e = LJ(s)
+    st = shaken(e)
+    acc = new_accumulator()
+    e.advance(st, e.settings.schedule.timestep, acc, False)   # one step: rebuild + forces
+    assert acc[20] >= 1                                       # the list was rebuilt
+    f, u, w = brute(e, st["positions"])
+    # Same pairs, same arithmetic up to summation order.
+    np.testing.assert_allclose(st["forces"], f, rtol=1e-9, atol=1e-9)
+    assert e.energy(st) == pytest.approx(u, rel=1e-11)
+    dt = e.settings.schedule.timestep
+    np.testing.assert_allclose(acc[12:15] / dt, w, rtol=1e-10)
+    assert acc[15] / dt == pytest.approx(u, rel=1e-11)
+
+
+def test_list_is_complete_and_exact():
+    """Every pair within r_list is in the list, none beyond it (several cell layouts)."""
+    rng = np.random.default_rng(7)
+    for box, walled in [((7.0, 7.0, 7.0), (False,) * 3), ((12.0, 9.5, 6.7), (False, False, True)),
+                        ((15.0, 15.0, 15.0), (True, False, False))]:
+        box = np.array(box)
+        n = 500
+        pos = rng.random((n, 3)) * box
+        rlist = 3.3
+        lp, ilp = image_arrays(box, walled)
+        nc, inv = cell_grid(box, rlist)
+        cell_start = np.zeros(int(np.prod(nc)) + 1, np.int64)
+        order = np.zeros(n, np.int64)
+        sort_by_cell(pos, inv, nc, cell_start, order, np.zeros(n, np.int64))
+        pos = pos[order]
+        d = pos[:, None, :] - pos[None, :, :]
+        d -= lp * np.rint(d * ilp)
+        r2 = (d ** 2).sum(-1)
+        np.fill_diagonal(r2, np.inf)
+        for half in (False, True):
+            nbr = np.zeros((n, 4), np.int32)     # too small on purpose: must report growth
+            count = np.zeros(n, np.int32)
+            widest = build_neighbour_list(pos, lp, ilp, nc, cell_start, rlist ** 2, half, nbr,
+                                          count)
+            assert widest > 4
+            nbr = np.zeros((n, widest), np.int32)
+            assert build_neighbour_list(pos, lp, ilp, nc, cell_start, rlist ** 2, half, nbr,
+                                        count) == widest
+            for i in range(n):
+                want = set(np.nonzero(r2[i] < rlist ** 2)[0])
+                if half:
+                    want = {j for j in want if j > i}
+                got = list(nbr[i, :count[i]])
+                assert len(got) == len(set(got)) and set(got) == want
+
+
+def test_forces_are_minus_the_energy_gradient():
+    """Central finite differences of the total energy (pairs + 9-3 walls)."""
+    s = lj_settings(container__walls="z", container__wall="lj93", gas__particles=200,
+                    gas__density=0.5, potential__tail="shifted")
+    e = LJ(s)
+    st = shaken(e, amount=0.1)
+    e.advance(st, e.settings.schedule.timestep, new_accumulator(), False)
+    rng = np.random.default_rng(1)
+    h = 1e-6
+    for i in rng.choice(e.n, 8, replace=False):
+        for a in range(3):
+            plus, minus = copy.deepcopy(st), copy.deepcopy(st)
+            plus["positions"][i, a] += h
+            minus["positions"][i, a] -= h
+            fd = -(e.energy(plus) - e.energy(minus)) / (2 * h)
+            assert st["forces"][i, a] == pytest.approx(fd, rel=1e-5, abs=1e-5)
+
+
+def test_lj93_wall_force_and_pressure_bookkeeping():
+    """Face impulses and wall energy of one step equal the 9-3 sums over the particles."""
+    s = lj_settings(container__walls="z", container__wall="lj93", gas__particles=300,
+                    gas__density=0.1, potential__tail="shifted")
+    e = LJ(s)
+    st = e.initial_state()
+    acc = new_accumulator()
+    dt = e.settings.schedule.timestep
+    e.advance(st, dt, acc, False)
+    eps, sig, cut = 1.0, 1.0, 3.0
+    shift = lj93_potential(cut, eps, sig, 0.0)
+
+    def fh(h):  # force away from the wall, by finite difference of the potential
+        return -(lj93_potential(h + 1e-6, eps, sig, 0.0)
+                 - lj93_potential(h - 1e-6, eps, sig, 0.0)) / 2e-6
+    L = e.box[2]
+    z = st["positions"][:, 2]
+    lower, upper = z[z < cut], L - z[L - z < cut]
+    assert len(lower) > 5 and len(upper) > 5
+    # The impulse of a step uses the forces at the end-of-step positions.
+    assert acc[4] / dt == pytest.approx(sum(fh(h) for h in lower), rel=1e-6)   # face z-
+    assert acc[5] / dt == pytest.approx(sum(fh(h) for h in upper), rel=1e-6)   # face z+
+    assert acc[18] / dt == pytest.approx(
+        sum(lj93_potential(h, eps, sig, shift) for h in np.concatenate([lower, upper])),
+        rel=1e-9)
+    assert acc[0:4].tolist() == [0.0] * 4          # periodic faces get nothing
+    assert lj93_minimum(1.0) == pytest.approx(0.858, abs=1e-3)
+    assert fh(lj93_minimum(1.0)) == pytest.approx(0.0, abs=1e-6)
+
+
+def test_tail_corrections_match_the_integrals():
+    """u_tail = 2πρ ∫ u r² dr and P_tail = -(2π/3)ρ² ∫ r u'(r) r² dr beyond r_c."""
+    from scipy.integrate import quad
+    rho, rc = 0.8, 2.5
+    u_tail, p_tail = tail_corrections(rho, rc)
+    u_int = 2 * np.pi * rho * quad(lambda r: lj_pair(r) * r * r, rc, np.inf)[0]
+    du = lambda r: 4 * (-12 * r ** -13 + 6 * r ** -7)  # noqa: E731
+    p_int = -2 * np.pi / 3 * rho ** 2 * quad(lambda r: r * du(r) * r * r, rc, np.inf)[0]
+    assert u_tail == pytest.approx(u_int, rel=1e-10)
+    assert p_tail == pytest.approx(p_int, rel=1e-10)
+
+
+def test_resume_is_bit_exact():
+    """Two chunks in one go equal one chunk, a deep copy of the state, a fresh engine and
+    a second chunk (thermostat and thermal walls draw random numbers; one thread)."""
+    s = lj_settings(container__walls="x", container__wall="thermal",
+                    container__wall_temperature=1.3, gas__particles=300,
+                    potential__neighbour_list="half")
+    e1 = LJ(s)
+    a = e1.initial_state()
+    acc = new_accumulator()
+    e1.advance(a, 0.5, acc, False)
+    b = copy.deepcopy(a)
+    e1.advance(a, 0.5, acc, False)
+    e2 = LJ(s)
+    e2.advance(b, 0.5, new_accumulator(), False)
+    for key in a:
+        np.testing.assert_array_equal(a[key], b[key], err_msg=key)
+    assert acc[20] > 0 and acc[17] != 0.0    # lists were rebuilt, the thermostat worked
+
+
+def test_momentum_conserved_in_a_periodic_box():
+    s = lj_settings(gas__particles=500, gas__density=0.8, schedule__thermostat="none")
+    e = LJ(s)
+    st = e.initial_state()
+    assert np.abs(st["velocities"].sum(axis=0)).max() < 1e-10
+    e.advance(st, 5.0, new_accumulator(), True)
+    assert np.abs(st["velocities"].sum(axis=0)).max() < 1e-10
