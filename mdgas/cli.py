@@ -171,6 +171,55 @@ def cmd_sweep(args) -> int:
     return command_line(args)
 
 
+# -- plot / report (a folder is a sweep: handed to mdgas.sweep) ------------------------
+
+def _sweep_hook(name: str, path: Path):
+    """``mdgas.sweep.<name>`` for a sweep folder, or a clear error when it is absent."""
+    from . import sweep as _sweep
+    fn = getattr(_sweep, name, None)
+    if fn is None:
+        raise UserError(f"{path}: is a folder (a sweep), and this version has no "
+                        f"mdgas.sweep.{name}; give a run file (.h5)")
+    return fn
+
+
+@command("plot")
+def cmd_plot(args) -> int:
+    target = Path(args.run)
+    if target.is_dir():
+        out = Path(args.output or target / "figures")
+        written = _sweep_hook("plot_sweep", target)(target, out, fmt=args.format)
+    else:
+        from .plots import plot_run
+        from .run import load
+        run = load(target)
+        out = Path(args.output or target.with_name(target.stem + "-figures"))
+        written = plot_run(run, out, fmt=args.format, animate_frames=args.animate)
+    for w in written:
+        print(w)
+    return 0
+
+
+@command("report")
+def cmd_report(args) -> int:
+    target = Path(args.run)
+    if target.is_dir():
+        out = Path(args.output or target / "report.html")
+        _sweep_hook("report_sweep", target)(target, out)
+    else:
+        from .report import run_report
+        from .run import load
+        run = load(target)
+        out = Path(args.output or target.with_suffix(".html"))
+        try:
+            run_report(run, out)
+        except OSError as exc:
+            raise UserError(f"{out}: cannot write the report ({exc.strerror or exc})") \
+                from None
+    print(out)
+    return 0
+
+
 # -- parser -------------------------------------------------------------------------
 
 def build_parser() -> argparse.ArgumentParser:
@@ -203,6 +252,20 @@ def build_parser() -> argparse.ArgumentParser:
 
     from .sweep import add_parser as _add_sweep_parser
     _add_sweep_parser(sub)
+
+    pl = sub.add_parser("plot", help="draw every figure of a run file (or a sweep folder)")
+    pl.add_argument("run", help="run file (.h5), or a sweep folder")
+    pl.add_argument("-o", "--output", metavar="DIR",
+                    help="folder for the figures (default: RUN-figures/ beside the run file)")
+    pl.add_argument("--format", choices=("png", "svg", "pdf"), default="png",
+                    help="file format (default png)")
+    pl.add_argument("--animate", action="store_true",
+                    help="also write an animated GIF across the stored frames")
+
+    rp = sub.add_parser("report", help="write a self-contained HTML report of a run file")
+    rp.add_argument("run", help="run file (.h5), or a sweep folder")
+    rp.add_argument("-o", "--output", metavar="FILE",
+                    help="report path (default: the run file with .html)")
 
     d = sub.add_parser("demo", help="run the embedded default job")
     d.add_argument("-o", "--output", help="where to write (default: runs/)")
