@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import os
 import sys
 import tempfile
 import time
@@ -284,7 +285,15 @@ def main(argv: list[str] | None = None) -> int:
     except UserError as exc:
         status = getattr(exc, "exit_status", 2)
         print(f"mdgas: {'stopped' if status == 130 else 'error'}: {exc}", file=sys.stderr)
+        if getattr(exc, "hard_exit", False):
+            # HDF5 cannot close a file whose writes failed and crashes at exit: leave now.
+            sys.stdout.flush()
+            sys.stderr.flush()
+            os._exit(status)
         return status
+    except BrokenPipeError:  # output piped into `head` and the like
+        sys.stderr.close()
+        return 0
     except KeyboardInterrupt:
         print("\nmdgas: interrupted", file=sys.stderr)
         return 130

@@ -32,7 +32,8 @@ from .engines import get_engine
 from .errors import InstabilityError, RunFileError, RunInterrupted, UserError
 from .progress import Progress
 from .store import (STATUS_COMPLETE, STATUS_FAILED, STATUS_INTERRUPTED, STATUS_RUNNING,
-                    RunWriter, estimate_file_bytes, read_checkpoint, read_run)
+                    RunFileWriteError, RunWriter, estimate_file_bytes, read_checkpoint, read_run,
+                    repair_truncated)
 
 #: Seconds of wall time between flushes of buffered samples to the run file.
 FLUSH_SECONDS = 2.0
@@ -40,6 +41,8 @@ FLUSH_SECONDS = 2.0
 MIN_BULK_PARTICLES = 100
 #: Fewer production samples than this make block averaging unreliable.
 MIN_SAMPLES = 100
+#: Free disk space (bytes) kept in reserve: a run stops cleanly rather than fill the disk.
+DISK_MARGIN = 16 * 2 ** 20
 #: Production limit with ``target_stderr`` when ``max_produce`` is not given (× produce).
 DEFAULT_MAX_FACTOR = 10.0
 
@@ -71,6 +74,9 @@ def resume(path: str | Path, *, progress: bool | None = None) -> Path:
     """Continue a run from its last checkpoint; returns the path once it is complete."""
     from . import config
     p = Path(path)
+    if p.exists() and not p.is_dir():
+        # A write that failed on a full disk leaves the file shorter than HDF5 expects.
+        repair_truncated(p)
     raw = read_run(p)
     meta = raw["meta"]
     status = meta.get("status", "")
@@ -114,6 +120,11 @@ def resume(path: str | Path, *, progress: bool | None = None) -> Path:
                  production=_production_rows(raw, int(c["n_samples"])))
     loop.run()
     return p
+
+
+class _DiskNearlyFull(Exception):
+    def __init__(self, free: int) -> None:
+        self.free = free
 
 
 def _alive(pid: int) -> bool:
@@ -307,13 +318,21 @@ class _Loop:
                 "phase": "production" if self.state["time"][0] >= self.t_eq else "equilibration",
                 "time": float(self.state["time"][0])}
 
+    def room(self, needed: int) -> None:
+        """Stop cleanly, before HDF5 hits a full disk, when the next write may not fit."""
+        free = shutil.disk_usage(self.writer.path.parent).free
+        if free < needed + DISK_MARGIN:
+            raise _DiskNearlyFull(free)
+
     def flush(self, times: list, rows: list) -> None:
+        self.room(len(rows) * 512 + 64 * 1024)
         self.writer.append_samples(np.asarray(times), rows)
         self.writer.write_histograms(self.hist.arrays())
         times.clear()
         rows.clear()
 
     def checkpoint(self) -> None:
+        self.room(sum(np.asarray(v).nbytes for v in self.state.values()) + 256 * 1024)
         self.writer.write_checkpoint(self.state, self.hist.arrays(), self.counters())
 
     # -- the run ---------------------------------------------------------------------
@@ -333,13 +352,24 @@ class _Loop:
                   "checkpoint", {"resumable": True})
             raise RunInterrupted(f"{w.path}: interrupted; continue from the last checkpoint "
                                  f"with: mdgas resume {w.path}") from None
-        except OSError as exc:
+        except _DiskNearlyFull as exc:
             t = float(self.state["time"][0])
-            _stop(w, STATUS_FAILED, f"writing the run file failed at t = {t:.4g} τ: {exc}",
+            _stop(w, STATUS_INTERRUPTED, f"stopped at t = {t:.6g} τ: the disk is nearly full",
                   {"resumable": True})
-            raise UserError(f"{w.path}: writing the run file failed at t = {t:.4g} τ "
-                            f"({exc.strerror or exc}); the data flushed before is intact. Free "
-                            f"disk space, then continue with: mdgas resume {w.path}") from None
+            raise UserError(f"{w.path}: stopped at t = {t:.6g} τ because the disk is nearly "
+                            f"full ({exc.free / 2**20:.0f} MB left); the data so far is intact. "
+                            f"Free disk space, then continue with: mdgas resume {w.path}"
+                            ) from None
+        except RunFileWriteError as exc:
+            t = float(self.state["time"][0])
+            # No further HDF5 call on this file: after a failed write, closing or even
+            # marking it can crash the library (measured: now and then a segfault). The
+            # file keeps status "running" like a killed run, and resumes the same way.
+            err = UserError(f"{w.path}: writing the run file failed at t = {t:.4g} τ "
+                            f"({exc.strerror or exc}); the data flushed before is kept. Free "
+                            f"disk space, then continue with: mdgas resume {w.path}")
+            err.hard_exit = True  # type: ignore[attr-defined]
+            raise err from None
         except BaseException as exc:
             _stop(w, STATUS_FAILED, f"{exc.__class__.__name__}: {exc}")
             raise

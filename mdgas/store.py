@@ -103,6 +103,60 @@ def _open_for_writing(path: Path, mode: str) -> h5py.File:
                            "check that it is an intact mdgas run file and writable") from None
 
 
+class RunFileWriteError(OSError):
+    """Writing to a run file failed (disk full, file-size limit, device gone).
+
+    HDF5 cannot close a file whose writes fail, and its own clean-up at interpreter
+    exit then crashes; ``hard_exit`` tells the command line to leave with os._exit.
+    """
+
+    hard_exit = True
+
+
+def _guard(method):
+    """Report any failure of HDF5 to write as one RunFileWriteError."""
+    import functools
+
+    @functools.wraps(method)
+    def wrapper(self, *args, **kwargs):
+        try:
+            return method(self, *args, **kwargs)
+        except UserError:
+            raise
+        except (OSError, RuntimeError) as exc:
+            _quiet_failed_writes()
+            text = str(exc)
+            reason = "the disk is full" if ("errno = 28" in text or "No space" in text) else \
+                "the file size limit was reached" if "errno = 27" in text else \
+                text.splitlines()[0][:160] if text else exc.__class__.__name__
+            raise RunFileWriteError(getattr(exc, "errno", None) or 0, reason) from exc
+    return wrapper
+
+
+def _quiet_failed_writes() -> None:
+    """After a failed write, every h5py object freed makes HDF5 retry the write and h5py
+    print the failure as an ignored exception; the one error message says it all."""
+    import sys
+    previous = sys.unraisablehook
+    if getattr(previous, "_mdgas", False):
+        return
+
+    def hook(info):
+        if isinstance(info.exc_value, RuntimeError) and "write failed" in str(info.exc_value):
+            return
+        previous(info)
+    hook._mdgas = True  # type: ignore[attr-defined]
+    sys.unraisablehook = hook
+    # Cython's unraisable path also prints the traceback through sys.excepthook.
+    previous_except = sys.excepthook
+
+    def except_hook(kind, value, tb):
+        if isinstance(value, RuntimeError) and "write failed" in str(value):
+            return
+        previous_except(kind, value, tb)
+    sys.excepthook = except_hook
+
+
 class RunWriter:
     """Creates a run file (or reopens one to resume) and appends to it as the run goes on.
 
@@ -114,6 +168,8 @@ class RunWriter:
                  _reopen: bool = False) -> None:
         self.path = Path(path)
         if _reopen:
+            _quiet_failed_writes()
+            self.repaired = repair_truncated(self.path)
             self.file = _open_for_writing(self.path, "r+")
             self.n_samples = _common_length(self.file)
             pos = self.file.get(f"{GROUP}/position/time")
@@ -129,6 +185,7 @@ class RunWriter:
         except OSError as exc:
             raise UserError(f"{self.path}: cannot create the folder {self.path.parent} "
                             f"({exc.strerror or exc}); choose a writable folder with -o") from None
+        _quiet_failed_writes()
         self.file = _open_for_writing(self.path, "w")
         self.n_samples = 0
         self.n_frames = 0
@@ -199,6 +256,7 @@ class RunWriter:
         return g
 
     # -- appending ---------------------------------------------------------------------
+    @_guard
     def append_samples(self, times: np.ndarray, rows: list[dict[str, np.ndarray]]) -> None:
         """Append a batch of sample rows (dicts from observe.sample_row) and flush."""
         if not rows:
@@ -214,6 +272,7 @@ class RunWriter:
         self.n_samples += k
         self.file.flush()
 
+    @_guard
     def append_frame(self, time: float, positions: np.ndarray, velocities: np.ndarray) -> None:
         n = positions.shape[0]
         k = self.n_frames
@@ -234,11 +293,13 @@ class RunWriter:
         self.n_frames = k + 1
         self.file.flush()
 
+    @_guard
     def write_histograms(self, arrays: dict[str, np.ndarray]) -> None:
         """Store the production histograms, overwriting the previous ones in place."""
         _write_arrays(self.file.require_group("observables/histograms"), arrays)
         self.file.flush()
 
+    @_guard
     def write_state(self, group: str, state: dict[str, np.ndarray],
                     extra: dict[str, Any] | None = None) -> None:
         """Store an engine state (every array) under ``mdgas/<group>``."""
@@ -248,6 +309,7 @@ class RunWriter:
             g.attrs[k] = v
         self.file.flush()
 
+    @_guard
     def write_checkpoint(self, state: dict[str, np.ndarray], histograms: dict[str, np.ndarray],
                          counters: dict[str, float | int]) -> int:
         """Write a checkpoint into the older of the two slots; returns its sequence number.
@@ -277,6 +339,7 @@ class RunWriter:
         self.file.flush()
         return seq
 
+    @_guard
     def truncate(self, n_samples: int, n_frames: int) -> None:
         """Drop samples and frames written after a checkpoint (before resuming from it)."""
         obs = self.file["observables"]
@@ -296,17 +359,20 @@ class RunWriter:
         self.n_samples, self.n_frames = n_samples, n_frames
         self.file.flush()
 
+    @_guard
     def set_attrs(self, attrs: dict[str, Any]) -> None:
         m = self.file["mdgas"]
         for k, v in attrs.items():
             m.attrs[k] = v
         self.file.flush()
 
+    @_guard
     def set_parameter(self, section: str, key: str, value: Any) -> None:
         """Change one stored parameter (e.g. the production time actually used)."""
         self.file[f"parameters/{section}"].attrs[key] = value
         self.file.flush()
 
+    @_guard
     def finish(self, status: str, message: str = "", attrs: dict[str, Any] | None = None) -> None:
         m = self.file["mdgas"]
         m.attrs["status"] = status
@@ -351,6 +417,25 @@ def _write_arrays(group: h5py.Group, arrays: dict[str, np.ndarray]) -> None:
         if ds is not None:
             del group[k]
         group.create_dataset(k, data=v)
+
+
+def repair_truncated(path: Path) -> bool:
+    """Pad a file cut short by a failed write to the length its superblock records.
+
+    HDF5 refuses to open such a file at all; padded, everything written before the
+    failure opens again (the padding itself holds nothing). True if it was padded.
+    """
+    eof = _hdf5_eof(path)
+    size = path.stat().st_size
+    if eof is None or size >= eof:
+        return False
+    try:
+        os.truncate(path, eof)
+    except OSError as exc:
+        raise RunFileError(f"{path}: the file is truncated ({size} of {eof} bytes) and "
+                           f"cannot be repaired ({exc.strerror or exc}); free disk space "
+                           "and try again") from None
+    return True
 
 
 def _slot_seq(root: h5py.Group, name: str) -> int:
