@@ -202,3 +202,23 @@ def test_cli_summary_json_has_the_verdict_keys(ideal_run, capsys):
         assert set(ref) >= {"Z", "sigma_away"}
     for c in s["checks"].values():
         assert c["status"] in ("pass", "warn", "fail") and c["detail"]
+
+
+def test_si_values_and_the_real_fluid_reference_for_a_mapped_run(ideal_run):
+    pytest.importorskip("CoolProp")
+    from mdgas.analysis.summary import si_state
+    argon = _as_model(ideal_run, **{"gas.model": "lennard-jones", "gas.species": "argon",
+                                    "gas.density": 0.01, "gas.temperature": 1.0})
+    si = si_state(argon, Estimate(1.0, 0.01, 100), Estimate(0.0099, 0.0002, 100))
+    assert si is not None and si["species"] == "argon"
+    # σ = 3.405 Å, ε/k = 119.8 K (the argon preset): ρ = 0.01/(N_A σ³) = 420.63 mol/m³,
+    # T = 119.8 K (hand-computed).
+    assert si["density_mol_m3"] == pytest.approx(420.63, rel=1e-4)
+    assert si["temperature_K"]["mean"] == pytest.approx(119.8, rel=1e-9)
+    refs, _ = V.compare(argon, Estimate(0.99, 0.01, 100), si["real_fluid"], temperature=1.0)
+    cp = refs["CoolProp Argon"]
+    assert cp["Z"] == pytest.approx(references.coolprop_z("Argon", 119.8,
+                                                          density_mol_m3=420.63), rel=1e-4)
+    assert cp["sigma_away"] == pytest.approx((0.99 - cp["Z"]) / 0.01)
+    # A reduced-units run has no SI view.
+    assert si_state(ideal_run, Estimate(1.0, 0.0, 1), Estimate(1.0, 0.0, 1)) is None

@@ -106,8 +106,11 @@ def si_state(run, t: Estimate, p: Estimate) -> dict[str, Any] | None:
         except (ImportError, AttributeError):
             fluid = ""
     if fluid:
-        out["real_fluid"] = {"fluid": fluid, "temperature_K": out["temperature_set_K"],
-                             "density_mol_m3": rho_mol}
+        # At the measured temperature, as the model references are.
+        t_k = out["temperature_K"]["mean"]
+        out["real_fluid"] = {"fluid": fluid, "density_mol_m3": rho_mol,
+                             "temperature_K": t_k if np.isfinite(t_k) else
+                             out["temperature_set_K"]}
     return out
 
 
