@@ -182,11 +182,15 @@ def eos_of(settings) -> EquationOfState:
 
 # -- the real-gas view of a run ----------------------------------------------------------
 
-def real_gas(run) -> dict[str, Any] | None:
+def real_gas(run, temperature=None, pressure=None, z=None, pressure_source: str = ""
+             ) -> dict[str, Any] | None:
     """SI figures, requested vs measured pressure, EOS and real-fluid Z, confinement.
 
-    None when the run has no unit system (no gas.species, no gas.sigma). Values are
-    SI unless a key ends in ``_reduced``; uncertain ones are {"mean", "stderr"}.
+    None when the run has no unit system (no gas.species, no gas.sigma). The summary
+    passes its own estimates (``temperature``, ``pressure``, ``z`` as Estimates, and the
+    pressure source) so that both show the same numbers; without them they are computed
+    from the run's production samples. Values are SI unless a key ends in ``_reduced``;
+    uncertain ones are {"mean", "stderr"}.
     """
     from . import species as _species
     from . import units
@@ -201,10 +205,15 @@ def real_gas(run) -> dict[str, Any] | None:
     sp = _species.get(s.gas.species) if s.gas.species else None
     eos = eos_of(s)
     rho = s.gas.density
-    _, temp = run.series("temperature")
-    t_est = estimate(temp)
-    kind, p_est = measured_pressure(run)
-    z_est = compressibility(run)
+    t_est = temperature if temperature is not None else estimate(run.series("temperature")[1])
+    kind, p_est = (pressure_source, pressure) if pressure is not None \
+        else measured_pressure(run)
+    if z is None:  # as the summary does: Z of the full potential (see verdict.tail_shift)
+        from .analysis.statistics import Estimate
+        from .analysis.verdict import tail_shift
+        raw = compressibility(run)
+        z = Estimate(raw.mean + tail_shift(run, kind), raw.stderr, raw.n_eff)
+    z_est = z
     f_p, f_t = us.factor("pressure"), us.factor("temperature")
 
     def si(kind_: str, est, unit: str) -> dict | None:
@@ -304,6 +313,10 @@ def _pore(run, us, eos, t_est, pw_est, z_est, ref, fluid, si) -> dict:
         "volume_convention": volume_convention(),
         "mean_density_kg_m3": units_mass_density(us, rho),
         "normal_pressure_bar": si("pressure", pw_est, "bar"),
+        "normal_pressure_note": "measured on the walls with forces cut at r_c; the full "
+                                "potential's would differ by about the mean-field tail",
+        "tail_pressure_bar": ref.lj_tail_pressure(rho, s.potential.cutoff)
+        * us.factor("pressure") / 1e5 if s.gas.model == "lennard-jones" else 0.0,
         "tangential_pressure_bar": si("pressure", p_t, "bar"),
         "apparent_Z": z_est.as_json(),
         "accessible_width_nm": h_acc * us.sigma * 1e9,

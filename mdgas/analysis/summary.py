@@ -222,6 +222,9 @@ def _assessment(run, full_run, out, t_est, p_est, z, kind, n_eff, cut) -> dict[s
         "equilibration": cut,
         "si": si,
     })
+    if si:  # the real-gas section (mdgas.statepoint): SI figures, requested P, pore
+        from ..statepoint import real_gas
+        extra["real_gas"] = real_gas(run, t_est, p_est, z_model, kind)
     return extra
 
 
@@ -274,6 +277,9 @@ def _render_assessment(s: dict[str, Any]) -> list[str]:
         lines.append(f"SI        {si['species'] or 'mapped gas'}: T = {t['mean']:.4g} K, "
                      f"P = {p['mean'] / 1e5:.4g} ± {(p['stderr'] or 0) / 1e5:.2g} bar, "
                      f"ρ = {si['density_mol_m3'] / 1e3:.4g} mol/L")
+    if s.get("real_gas"):
+        from ..statepoint import render_real_gas
+        lines += render_real_gas(s["real_gas"])
     v = s.get("verdict")
     if v:
         lines.append("")
