@@ -1100,3 +1100,112 @@ def command_line(args) -> int:
     print(f"crossings  {result.folder / BREAKDOWN_NAME}")
     print(f"next: mdgas plot {result.folder}   mdgas report {result.folder}")
     return 1 if result.failed else 0
+
+
+# -- figures and report of a sweep folder (the hooks of `mdgas plot` / `mdgas report`) ------
+
+def plot_sweep(folder: str | Path, out: str | Path | None = None, fmt: str = "png"
+               ) -> list[Path]:
+    """Write the sweep's map and isotherm figures; returns the paths written."""
+    from .sweepplots import plot_folder
+    return plot_folder(folder, out, fmt=fmt)
+
+
+def report_sweep(folder: str | Path, out: str | Path | None = None) -> str:
+    """The sweep's self-contained HTML report (map, isotherms, crossings, every run)."""
+    import matplotlib.pyplot as plt
+
+    from . import breakdown, report, style, sweepplots
+    fo = open_folder(folder)
+    crossings = analyse(fo)
+    figs = []
+    captions = {
+        "map": "Temperature against density and against measured pressure; each state "
+               "point shaded by |Z − 1|, lines are the tolerance contours interpolated over "
+               "the points, markers the crossings found along each isotherm (± stderr), "
+               "dotted lines the second-virial estimate ρ = τ/|B2(T)|.",
+        "isotherms-density": "Z − 1 against density per isotherm (± 1 stderr) with the "
+                             "reference equation of state (dashed) and the crossings (★).",
+        "isotherms-pressure": "The same against the measured pressure.",
+    }
+    with style.use():
+        for name, fig in sweepplots.figures(fo, crossings).items():
+            figs.append(report.Figure(name, captions.get(name, name), png=_png(fig)))
+            plt.close(fig)
+    by = {f.name: f for f in figs}
+    ok = [r for r in fo.rows if r.get("status") == "complete"]
+    bad = [r for r in fo.rows if r.get("status") != "complete"]
+    found = [c for c in crossings if c.status == breakdown.FOUND]
+    lead = (f"<p>Where does PV = NkT stop being good enough? This sweep ran "
+            f"{len(fo.rows)} state point(s): {len(ok)} complete"
+            + (f", <b>{len(bad)} not complete</b>" if bad else "")
+            + f". Tolerances: {', '.join(f'{t:g} %' for t in fo.tolerances)} on |Z − 1|.</p>")
+    if found:
+        lead += "<ul>" + "".join(
+            f"<li>{report.esc(_group_text(c.group))}: |Z − 1| reaches {c.tolerance:g} % at "
+            f"ρ = {c.density:.4g} ± {c.density_stderr:.2g} σ⁻³ "
+            f"(P = {c.pressure:.4g} ± {c.pressure_stderr:.2g} ε/σ³)</li>" for c in found) + "</ul>"
+    crows = []
+    for c in crossings:
+        crows.append([_group_text(c.group), f"{c.tolerance:g} %", c.status,
+                      _pm(c.density, c.density_stderr), _pm(c.pressure, c.pressure_stderr),
+                      "" if c.virial_estimate is None else f"{c.virial_estimate:.4g}",
+                      c.method or c.note])
+    ctable = report.table(crows, ["group", "tolerance", "status", "ρ* (σ⁻³)", "P* (ε/σ³)",
+                                  "B2 estimate ρ", "how"])
+    keys = fo.varied_keys
+    rrows = [[r["name"], ("html", report.badge("pass" if r.get("status") == "complete"
+                                                else "fail")),
+              *[_fmt(r.get(k)) for k in keys],
+              _pm(r.get("Z"), r.get("Z_stderr")), r.get("message") or ""] for r in fo.rows]
+    rtable = report.table(rrows, ["run", "status", *keys, "Z", "message"])
+    method = ("<p>Replicas at one density are combined by inverse-variance weighting. The "
+              "first density whose |Z − 1| reaches the tolerance and the one before it "
+              "bracket the crossing; Z − 1 is fitted against ρ by weighted least squares "
+              "(weights 1/stderr²) on up to two points either side (a quadratic with four "
+              "points, else a line) and solved for the crossing. Its standard error is "
+              "propagated from the fit's covariance to first order, scaled up by the reduced "
+              "χ² when that exceeds 1. At the crossing Z = 1 ± τ, so P* = (1 ± τ) ρ* T with "
+              "T the measured temperature. <code>mdgas sweep SWEEP --refine</code> adds "
+              "bisection points inside each bracket still wider than twice the error.</p>"
+              "<p>Crossings are in "
+              f"<code>{report.esc(fo.path / BREAKDOWN_NAME)}</code>, every run in "
+              f"<code>{report.esc(fo.path / TABLE_NAME)}</code>.</p>")
+    sections = [
+        report.Section("Breakdown", ctable, "breakdown", [by[n] for n in ("map",) if n in by]),
+        report.Section("Isotherms", "<p>Measured Z − 1 with the reference equations of state "
+                       "from the analysis references.</p>", "isotherms",
+                       [by[n] for n in ("isotherms-density", "isotherms-pressure") if n in by]),
+        report.Section("Method", method, "method"),
+        report.Section("Runs", rtable, "runs"),
+        report.Section("Sweep file", f"<pre>{report.esc(fo.sweep_text)}</pre>", "sweep-file"),
+        report.cautions_section(),
+    ]
+    doc = report.build_html(f"mdgas sweep report: {fo.name}", lead, sections,
+                            subtitle=f"{len(fo.rows)} runs · varied: {', '.join(keys)}",
+                            footer="Made by mdgas from the sweep folder. Figures are embedded; "
+                                   "the file opens without a network.")
+    if out is not None:
+        try:
+            Path(out).write_text(doc, encoding="utf-8")
+        except OSError as exc:
+            raise UserError(f"{out}: cannot write the report ({exc.strerror or exc})") from None
+    return doc
+
+
+def _png(fig) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=100)
+    return buf.getvalue()
+
+
+def _pm(mean: Any, err: Any) -> str:
+    if mean is None or (isinstance(mean, float) and not math.isfinite(mean)):
+        return ""
+    if err is None or (isinstance(err, float) and not math.isfinite(err)):
+        return f"{mean:.5g}"
+    return f"{mean:.5g} ± {err:.2g}"
+
+
+def _group_text(group: Mapping[str, Any]) -> str:
+    return ", ".join(f"{k.rsplit('.', 1)[-1]} = {_fmt(v)}" for k, v in group.items()) or "all"
