@@ -127,6 +127,11 @@ def cmd_check(args) -> int:
     print(f"  production samples  {fig['samples']}")
     print(f"  estimated cost      {fig['estimated_seconds']:.3g} s wall time, "
           f"{fig['estimated_memory_mb']:.3g} MB")
+    from .statepoint import describe_settings
+    si_lines = describe_settings(settings)
+    if si_lines:
+        print("\nthe same state in SI units")
+        print("\n".join(si_lines))
     return 0
 
 

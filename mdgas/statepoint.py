@@ -447,3 +447,33 @@ def render_real_gas(section: dict[str, Any] | None) -> list[str]:
 
 def _num(x: float | None) -> str:
     return "n/a" if x is None else f"{x:.4f}"
+
+
+def describe_settings(settings) -> list[str]:
+    """Text lines of a config's state in SI, for ``mdgas check`` (empty when reduced)."""
+    from . import units
+    us = units.system_of(settings)
+    if us is None:
+        return []
+    g, box = settings.gas, settings.box
+    rho = g.density
+    lines = [f"  species             {us.species or 'user-given'}: σ = {us.sigma * 1e9:.4g} nm, "
+             f"ε/k = {us.epsilon / units.K_B:.4g} K, M = {us.mass * units.N_A * 1e3:.5g} g/mol",
+             f"  temperature         {g.temperature * us.factor('temperature'):.5g} K",
+             f"  density             {units.describe(us, 'mass_density', rho)} = "
+             f"{units.describe(us, 'molar_density', rho)}",
+             f"  box edges           {' × '.join(f'{x * us.sigma * 1e9:.4g}' for x in box)} nm",
+             f"  time unit τ         {us.time * 1e12:.4g} ps; production "
+             f"{settings.schedule.produce * us.time * 1e9:.4g} ns, time step "
+             f"{settings.schedule.timestep * us.time * 1e15:.4g} fs"]
+    if g.pressure is not None:
+        eos = eos_of(settings)
+        acc = eos.accuracy_at(g.temperature, rho)
+        lines.append(f"  requested pressure  {units.describe(us, 'pressure', g.pressure)}: "
+                     f"density from {eos.name} (Z = {eos.z(g.temperature, rho):.4f}"
+                     + (f", stated accuracy {100 * acc:.2g} %)" if acc is not None else ")"))
+    if settings.container.pore_width is not None:
+        lines.append(f"  pore width          {settings.container.pore_width * us.sigma * 1e9:.4g}"
+                     " nm between the wall planes")
+    lines.append(f"  caution             {CAUTIONS[0]}")
+    return lines
