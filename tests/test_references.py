@@ -64,9 +64,8 @@ def test_van_der_waals_hand_values():
     # (hand-computed).
     assert R.van_der_waals(0.2, 2.0, a, b) == pytest.approx(0.777122, abs=1e-5)
     # The critical point of vdW in its own constants: Z_c = 3/8 (textbook, common practice).
-    tc, pc = 1.3120, 0.1279
     rhoc = 1.0 / (3.0 * b)
-    assert R.van_der_waals(rhoc, tc, a, b) == pytest.approx(3.0 / 8.0, rel=1e-12)
+    assert R.van_der_waals(rhoc, 1.3120, a, b) == pytest.approx(3.0 / 8.0, rel=1e-12)
 
 
 def test_tail_pressure_hand_value():
