@@ -39,7 +39,7 @@ CONFIGS = {
         density = 0.01
         [schedule]
         equilibrate = 5.0
-        produce = 3000.0
+        produce = 2000.0
         [output]
         sample_every = 0.5
         frame_every = 500.0
@@ -110,10 +110,6 @@ def wait_for_checkpoint(path: Path, proc: subprocess.Popen, timeout: float = 60)
     raise AssertionError("the run never wrote a checkpoint")
 
 
-def reference(tmp_path: Path, cfg: Path) -> Path:
-    return timed_reference(tmp_path, cfg)[0]
-
-
 def timed_reference(tmp_path: Path, cfg: Path) -> tuple[Path, float]:
     """The uninterrupted run, and the wall time from its first checkpoint to its end."""
     ref = tmp_path / "reference.h5"
@@ -135,10 +131,26 @@ def timed_reference(tmp_path: Path, cfg: Path) -> tuple[Path, float]:
     return ref, span if span is not None else time.monotonic() - t0
 
 
+@pytest.fixture(scope="module")
+def ideal(tmp_path_factory) -> tuple[Path, Path, float]:
+    """(config, uninterrupted run file, its computing wall time) of the ideal-gas case,
+    shared by the tests of this module that only read it."""
+    tmp = tmp_path_factory.mktemp("ideal")
+    cfg = write_config(tmp, "ideal")
+    ref, span = timed_reference(tmp, cfg)
+    return cfg, ref, span
+
+
+def reference_for(model: str, tmp_path: Path, ideal) -> tuple[Path, Path, float]:
+    if model == "ideal":
+        return ideal
+    cfg = write_config(tmp_path, model)
+    return (cfg, *timed_reference(tmp_path, cfg))
+
+
 @pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM], ids=["SIGINT", "SIGTERM"])
-def test_signal_stops_cleanly_with_exit_130_and_resume_completes(sig, tmp_path):
-    cfg = write_config(tmp_path, "ideal")
-    ref = reference(tmp_path, cfg)
+def test_signal_stops_cleanly_with_exit_130_and_resume_completes(sig, tmp_path, ideal):
+    cfg, ref, _ = ideal
     out = tmp_path / "stopped.h5"
     proc = start("run", str(cfg), "-o", str(out), "-q")
     wait_for_checkpoint(out, proc)
@@ -161,9 +173,8 @@ def test_signal_stops_cleanly_with_exit_130_and_resume_completes(sig, tmp_path):
 
 
 @pytest.mark.parametrize("model", list(CONFIGS))
-def test_sigkill_at_random_moments_then_resume_is_bit_identical(model, tmp_path):
-    cfg = write_config(tmp_path, model)
-    ref, span = timed_reference(tmp_path, cfg)
+def test_sigkill_at_random_moments_then_resume_is_bit_identical(model, tmp_path, ideal):
+    cfg, ref, span = reference_for(model, tmp_path, ideal)
     rng = random.Random(20240 + len(model))  # fixed seed: the same kill moments every time
     killed = 0
     for k in range(3):
@@ -209,9 +220,8 @@ driver.simulate(s, sys.argv[2], progress=False)
 """
 
 
-def test_sigkill_inside_a_checkpoint_write_falls_back_to_the_other_slot(tmp_path):
-    cfg = write_config(tmp_path, "ideal")
-    ref = reference(tmp_path, cfg)
+def test_sigkill_inside_a_checkpoint_write_falls_back_to_the_other_slot(tmp_path, ideal):
+    cfg, ref, _ = ideal
     out = tmp_path / "dead.h5"
     r = subprocess.run([sys.executable, "-c", KILL_IN_CHECKPOINT, str(cfg), str(out)],
                        env=ENV, capture_output=True, text=True, timeout=120)
@@ -230,11 +240,10 @@ def _limit_file_size(limit: int):
     return set_limit
 
 
-def test_a_write_failure_stops_cleanly_keeps_the_data_and_resumes(tmp_path):
+def test_a_write_failure_stops_cleanly_keeps_the_data_and_resumes(tmp_path, ideal):
     # A file-size limit makes writes fail with EFBIG part-way, as a full disk would
     # (Python ignores SIGXFSZ, so the write call itself fails).
-    cfg = write_config(tmp_path, "ideal")
-    ref = reference(tmp_path, cfg)
+    cfg, ref, _ = ideal
     full = ref.stat().st_size
     out = tmp_path / "limited.h5"
     r = subprocess.run([*CLI, "run", str(cfg), "-o", str(out), "-q"], env=ENV,
@@ -262,10 +271,10 @@ particles = 1000000
 density = 0.01
 [schedule]
 equilibrate = 0.5
-produce = 2.0
+produce = 4.0
 [output]
 sample_every = 0.5
-frame_every = 2.0
+frame_every = 4.0
 """
 
 
@@ -273,18 +282,55 @@ def test_million_particle_ideal_run_fits_in_2_gb(tmp_path):
     cfg = tmp_path / "million.toml"
     cfg.write_text(MILLION)
     out = tmp_path / "million.h5"
-    proc = subprocess.Popen([*CLI, "run", str(cfg), "-o", str(out), "-q"], env=ENV,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE)
-    _, _, rusage = os.wait4(proc.pid, 0)
+    log = tmp_path / "stderr.txt"
+    with open(log, "w") as err:
+        proc = subprocess.Popen([*CLI, "run", str(cfg), "-o", str(out), "-q"], env=ENV,
+                                stdout=subprocess.DEVNULL, stderr=err)
+        _, status, rusage = os.wait4(proc.pid, 0)  # the rusage of this child alone
+        proc.returncode = os.waitstatus_to_exitcode(status)
     peak = rusage.ru_maxrss * 1024  # Linux reports kilobytes
-    stderr = proc.stderr.read().decode()
-    proc.stdout.close()
-    proc.stderr.close()
-    assert "Traceback" not in stderr
-    assert mdgas.load(out).complete, stderr
+    assert proc.returncode == 0, log.read_text()
+    assert mdgas.load(out).complete
     assert peak < 2 * 2 ** 30, f"peak RSS {peak / 2**20:.0f} MB"
     # `mdgas check` states memory_estimate: it must not promise less than was used,
     # nor be so loose that it says nothing.
     settings = mdgas.config.load(cfg)
     estimate = driver.memory_estimate(settings)
     assert peak <= estimate <= 2 * peak, (peak / 2**20, estimate / 2**20)
+
+
+def test_a_nearly_full_disk_stops_the_run_before_hdf5_fails(tmp_path, monkeypatch):
+    import shutil
+    from collections import namedtuple
+
+    from test_resume import settings_for
+    s = settings_for("ideal")
+    ref = tmp_path / "ref.h5"
+    driver.simulate(s, ref, progress=False)
+    real = shutil.disk_usage
+    usage = namedtuple("usage", "total used free")
+    calls = {"n": 0}
+
+    def disk_usage(path):
+        # The pre-flight check and the first checkpoint see a roomy disk, then it fills.
+        calls["n"] += 1
+        return real(path) if calls["n"] <= 2 else usage(10 * 2**30, 10 * 2**30 - 2**20, 2**20)
+    monkeypatch.setattr(driver.shutil, "disk_usage", disk_usage)
+    out = tmp_path / "full-disk.h5"
+    with pytest.raises(mdgas.errors.UserError, match="disk is nearly full.*mdgas resume"):
+        driver.simulate(s, out, progress=False)
+    run = mdgas.load(out)
+    assert run.status == store.STATUS_INTERRUPTED and run.meta["resumable"]
+    monkeypatch.undo()
+    driver.resume(out, progress=False)
+    assert_identical(ref, out)
+
+
+def test_preflight_refuses_a_run_that_cannot_fit_on_the_disk(tmp_path):
+    from mdgas import config
+    s = config.default_settings().replace(**{"gas.particles": 1_000_000,
+                                             "schedule.produce": 1e6,
+                                             "output.frame_every": 0.5})
+    with pytest.raises(mdgas.errors.UserError, match="MB are free.*frame_every = 0"):
+        driver.simulate(s, tmp_path / "huge.h5", progress=False)
+    assert not (tmp_path / "huge.h5").exists()  # refused before anything was written
