@@ -84,7 +84,7 @@ def test_summary_of_a_non_run_file_is_a_user_error(tmp_path, capsys):
     junk = tmp_path / "junk.h5"
     junk.write_bytes(b"not hdf5 at all")
     assert cli.main(["summary", str(junk)]) == 2
-    assert "not a readable HDF5 file" in capsys.readouterr().err
+    assert "not an HDF5 file" in capsys.readouterr().err
     other = tmp_path / "other.h5"
     with h5py.File(other, "w") as f:
         f["x"] = 1
