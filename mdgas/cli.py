@@ -158,17 +158,8 @@ def _json_default(o):
 
 @command("demo")
 def cmd_demo(args) -> int:
-    from . import config
-    from .driver import simulate
-    from .run import load
-    from .analysis.summary import render_text
-    settings = config.default_settings()
-    out = Path(args.output or settings.output.path)
-    print(f"mdgas demo: the embedded default job (ideal gas in a closed box) -> {out}",
-          file=sys.stderr)
-    simulate(settings, out, force=True, progress=None)
-    print(render_text(load(out).summary()))
-    return 0
+    from .sweep import demo
+    return demo(args.output)
 
 
 @command("sweep")
@@ -273,8 +264,8 @@ def build_parser() -> argparse.ArgumentParser:
     rp.add_argument("-o", "--output", metavar="FILE",
                     help="report path (default: the run file with .html)")
 
-    d = sub.add_parser("demo", help="run the embedded default job")
-    d.add_argument("-o", "--output", help="where to write (default: runs/)")
+    d = sub.add_parser("demo", help="run the embedded demo sweep: its map and report")
+    d.add_argument("-o", "--output", help="sweep folder (default: runs/demo/)")
     return p
 
 

@@ -75,59 +75,60 @@ def accessible_volume(box: np.ndarray, walled) -> float:
 
 # Heap ---------------------------------------------------------------------------------
 
-@njit(cache=True)
-def _sift_up(ht, hi, hpos, k, t, i):
+@njit(cache=True, inline="always")
+def _sift_up(heap, hpos, k, t, i):
+    # heap[k] = (event time, particle as a float): one cache line holds both
     while k > 0:
         p = (k - 1) >> 1
-        if ht[p] <= t:
+        if heap[p, 0] <= t:
             break
-        ht[k] = ht[p]
-        hi[k] = hi[p]
-        hpos[hi[k]] = k
+        heap[k, 0] = heap[p, 0]
+        heap[k, 1] = heap[p, 1]
+        hpos[int(heap[k, 1])] = k
         k = p
-    ht[k] = t
-    hi[k] = i
+    heap[k, 0] = t
+    heap[k, 1] = i
     hpos[i] = k
 
 
-@njit(cache=True)
-def _sift_down(ht, hi, hpos, k, t, i):
-    n = ht.shape[0]
+@njit(cache=True, inline="always")
+def _sift_down(heap, hpos, k, t, i):
+    n = heap.shape[0]
     while True:
         c = 2 * k + 1
         if c >= n:
             break
-        if c + 1 < n and ht[c + 1] < ht[c]:
+        if c + 1 < n and heap[c + 1, 0] < heap[c, 0]:
             c += 1
-        if ht[c] >= t:
+        if heap[c, 0] >= t:
             break
-        ht[k] = ht[c]
-        hi[k] = hi[c]
-        hpos[hi[k]] = k
+        heap[k, 0] = heap[c, 0]
+        heap[k, 1] = heap[c, 1]
+        hpos[int(heap[k, 1])] = k
         k = c
-    ht[k] = t
-    hi[k] = i
+    heap[k, 0] = t
+    heap[k, 1] = i
     hpos[i] = k
 
 
-@njit(cache=True)
-def _reschedule(ht, hi, hpos, tcol, tcross, i):
+@njit(cache=True, inline="always")
+def _reschedule(heap, hpos, tcol, tcross, i):
     t = tcol[i] if tcol[i] < tcross[i] else tcross[i]
     k = hpos[i]
-    if k > 0 and t < ht[(k - 1) >> 1]:
-        _sift_up(ht, hi, hpos, k, t, i)
+    if k > 0 and t < heap[(k - 1) >> 1, 0]:
+        _sift_up(heap, hpos, k, t, i)
     else:
-        _sift_down(ht, hi, hpos, k, t, i)
+        _sift_down(heap, hpos, k, t, i)
 
 
 # Cells --------------------------------------------------------------------------------
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _cell_of(cell, nc, i):
     return (cell[i, 2] * nc[1] + cell[i, 1]) * nc[0] + cell[i, 0]
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _cell_insert(head, nxt, prv, cell, nc, i):
     c = _cell_of(cell, nc, i)
     h = head[c]
@@ -138,7 +139,7 @@ def _cell_insert(head, nxt, prv, cell, nc, i):
     head[c] = i
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _cell_remove(head, nxt, prv, cell, nc, i):
     n, p = nxt[i], prv[i]
     if p >= 0:
@@ -151,7 +152,7 @@ def _cell_remove(head, nxt, prv, cell, nc, i):
 
 # Prediction ---------------------------------------------------------------------------
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _move(P, i, t):
     dt = t - P[i, _T]
     P[i, 0] += P[i, 3] * dt
@@ -160,7 +161,7 @@ def _move(P, i, t):
     P[i, _T] = t
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _crossing(P, cell, nc, cs, box, walled, tcross, code, i, now):
     """Next cell crossing or wall hit of ``i`` (up to date at ``now``)."""
     best = np.inf
@@ -192,7 +193,7 @@ def _crossing(P, cell, nc, cs, box, walled, tcross, code, i, now):
     code[i] = which
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
           layer_axis, layer_side, skip):
     """Look for a collision of ``i`` earlier than its candidate in the neighbour cells.
@@ -316,49 +317,66 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
     nc, cs = cell_grid(box, walled, n)
     ncell = nc[0] * nc[1] * nc[2]
     P = np.empty((n, 8))
-    cell = np.empty((n, 3), dtype=np.int64)
-    head = np.full(ncell, -1, dtype=np.int64)
-    nxt = np.empty(n, dtype=np.int64)
-    prv = np.empty(n, dtype=np.int64)
+    cell = np.empty((n, 3), dtype=np.int32)
+    head = np.full(ncell, -1, dtype=np.int32)
+    nxt = np.empty(n, dtype=np.int32)
+    prv = np.empty(n, dtype=np.int32)
     tcol = np.empty(n)
     tcross = np.empty(n)
-    code = np.empty(n, dtype=np.int64)
-    partner = np.empty(n, dtype=np.int64)
+    code = np.empty(n, dtype=np.int32)
+    partner = np.empty(n, dtype=np.int32)
     pcount = np.empty(n)
-    ht = np.empty(n)
-    hi = np.empty(n, dtype=np.int64)
-    hpos = np.empty(n, dtype=np.int64)
+    heap = np.empty((n, 2))
+    hpos = np.empty(n, dtype=np.int32)
+    # Internally the particles are numbered in cell order (a counting sort), so that
+    # neighbours sit close in memory whatever order the caller keeps them in.
+    home = np.empty(n, dtype=np.int64)
+    fill = np.zeros(ncell + 1, dtype=np.int64)
     for i in range(n):
+        c3 = 0
+        for d in range(2, -1, -1):
+            c = min(max(int(math.floor(pos[i, d] / cs[d])), 0), nc[d] - 1)
+            c3 = c3 * nc[d] + c
+        home[i] = c3
+        fill[c3 + 1] += 1
+    for c in range(ncell):
+        fill[c + 1] += fill[c]
+    order = np.empty(n, dtype=np.int64)  # internal number -> caller's number
+    for i in range(n):
+        order[fill[home[i]]] = i
+        fill[home[i]] += 1
+    for k in range(n):
+        i = order[k]
         for d in range(3):
-            P[i, d] = pos[i, d]
-            P[i, 3 + d] = vel[i, d]
+            P[k, d] = pos[i, d]
+            P[k, 3 + d] = vel[i, d]
             c = int(math.floor(pos[i, d] / cs[d]))
-            cell[i, d] = min(max(c, 0), nc[d] - 1)
-        P[i, _T] = 0.0
-        P[i, _CNT] = 0.0
-        _cell_insert(head, nxt, prv, cell, nc, i)
+            cell[k, d] = min(max(c, 0), nc[d] - 1)
+        P[k, _T] = 0.0
+        P[k, _CNT] = 0.0
+        _cell_insert(head, nxt, prv, cell, nc, k)
     for i in range(n):
         _crossing(P, cell, nc, cs, box, walled, tcross, code, i, 0.0)
         tcol[i] = np.inf
         partner[i] = -1
         _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, 0.0, -1, 0, -1)
-        ht[i] = tcol[i] if tcol[i] < tcross[i] else tcross[i]
-        hi[i] = i
+        heap[i, 0] = tcol[i] if tcol[i] < tcross[i] else tcross[i]
+        heap[i, 1] = i
         hpos[i] = i
     for k in range(n // 2 - 1, -1, -1):
-        _sift_down(ht, hi, hpos, k, ht[k], hi[k])
+        _sift_down(heap, hpos, k, heap[k, 0], int(heap[k, 1]))
 
     V = P[:, 3:6]  # velocity view for the shared wall rules
     collisions = 0
     events = 0
     while n > 0:
-        i = hi[0]
-        now = ht[0]
+        i = int(heap[0, 1])
+        now = heap[0, 0]
         if now > duration:
             break
         events += 1
         if tcol[i] <= tcross[i]:
-            k = partner[i]
+            k = int(partner[i])
             if P[k, _CNT] == pcount[i]:
                 _move(P, i, now)
                 _move(P, k, now)
@@ -398,13 +416,14 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
                 P[k, _CNT] += 1.0
                 collisions += 1
                 # the pair just parted: it cannot meet again before another event
-                for (a, other) in ((i, k), (k, i)):
-                    _crossing(P, cell, nc, cs, box, walled, tcross, code, a, now)
-                    tcol[a] = np.inf
-                    partner[a] = -1
-                    _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, a, now,
+                for a in range(2):
+                    me, other = (i, k) if a == 0 else (k, i)
+                    _crossing(P, cell, nc, cs, box, walled, tcross, code, me, now)
+                    tcol[me] = np.inf
+                    partner[me] = -1
+                    _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, me, now,
                           -1, 0, other)
-                    _reschedule(ht, hi, hpos, tcol, tcross, a)
+                    _reschedule(heap, hpos, tcol, tcross, me)
             else:
                 # stale candidate (partner changed course); the crossing still holds
                 _move(P, i, now)
@@ -412,7 +431,7 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
                 partner[i] = -1
                 _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
                       -1, 0, -1)
-                _reschedule(ht, hi, hpos, tcol, tcross, i)
+                _reschedule(heap, hpos, tcol, tcross, i)
         elif code[i] >= WALL:
             _move(P, i, now)
             face = code[i] - WALL
@@ -425,7 +444,7 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
             tcol[i] = np.inf
             partner[i] = -1
             _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now, -1, 0, -1)
-            _reschedule(ht, hi, hpos, tcol, tcross, i)
+            _reschedule(heap, hpos, tcol, tcross, i)
         else:
             _move(P, i, now)
             d = code[i] >> 1
@@ -455,18 +474,19 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
                 partner[i] = -1
                 _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
                       -1, 0, -1)
-            _reschedule(ht, hi, hpos, tcol, tcross, i)
+            _reschedule(heap, hpos, tcol, tcross, i)
 
-    for i in range(n):
-        _move(P, i, duration)
+    for k in range(n):
+        _move(P, k, duration)
+        i = order[k]
         for d in range(3):
-            x = P[i, d]
+            x = P[k, d]
             if not walled[d]:
                 x -= box[d] * math.floor(x / box[d])
                 if x >= box[d]:
                     x = 0.0
             pos[i, d] = x
-            vel[i, d] = P[i, 3 + d]
+            vel[i, d] = P[k, 3 + d]
     acc[COLLISIONS] += collisions
     acc[STEPS] += events
     return collisions
