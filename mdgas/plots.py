@@ -416,6 +416,73 @@ FIGURES: dict[str, tuple[Callable, str]] = {
 }
 
 
+# -- real gases in SI units (sections built by mdgas.statepoint.real_gas) ------------------
+
+def fig_real_gas(run, summary: dict):
+    """Ideal gas, the simulated model, its equation of state and the real fluid: Z in SI."""
+    rg = (summary or {}).get("real_gas")
+    if not rg:
+        return None
+    plt = _plt()
+    rows = [("ideal gas (PV = NkT)", 1.0, None)]
+    z = rg["Z"]
+    pore = rg.get("pore")
+    if pore:
+        za = pore["apparent_Z_accessible"]
+        rows.append(("pore: apparent Z, V between wall planes", z["mean"], z["stderr"]))
+        rows.append(("pore: with the accessible width", za["mean"], za["stderr"]))
+    else:
+        rows.append(("simulated model", z["mean"], z["stderr"]))
+    if rg["eos"].get("Z") is not None:
+        rows.append((f"{rg['eos']['name']} (model EOS{', bulk' if pore else ''})",
+                     rg["eos"]["Z"], None))
+    rf = rg["real_fluid"]
+    if rf.get("Z_same_T_P") is not None:
+        rows.append((f"real {rf['fluid']} (same T, P)", rf["Z_same_T_P"], None))
+    fig, ax = plt.subplots(figsize=(6.4, 0.45 * len(rows) + 1.7))
+    y = np.arange(len(rows))[::-1]
+    for k, (yy, (name, val, err)) in enumerate(zip(y, rows)):
+        ax.errorbar([val], [yy], xerr=None if err is None else [2 * err], capsize=4,
+                    marker=style.MARKERS[k % len(style.MARKERS)], ms=7, color=style.INK[1],
+                    ls="none")
+    ax.set_yticks(y, [r[0] for r in rows])
+    p, t = rg["pressure_bar"], rg["temperature_K"]
+    ax.set_title(f"{rg['species']}: {t['mean']:.4g} K, {p['mean']:.4g} bar, "
+                 f"{rg['density_kg_m3']:.4g} kg/m³", pad=10)
+    ax.set_xlabel("compressibility factor Z = PV/(NkT)  (error bar: ±2 stderr)")
+    ax.set_ylim(-0.7, len(rows) - 0.3)
+    ax.grid(axis="y", visible=False)
+    fig.tight_layout()
+    return fig
+
+
+def fig_pore_si(run, summary: dict):
+    """Density across a slit pore in kg/m³ against nm, with the pore-average density."""
+    pore = ((summary or {}).get("real_gas") or {}).get("pore")
+    if not pore or "profile_z_nm" not in pore:
+        return None
+    plt = _plt()
+    fig, ax = plt.subplots(figsize=(6.4, 3.0))
+    ax.step(pore["profile_z_nm"], pore["profile_kg_m3"], where="mid", color=style.INK[1],
+            label="simulation")
+    ax.axhline(pore["mean_density_kg_m3"], color=style.INK[0], ls="--", lw=1.0,
+               label="pore average N/V")
+    ax.set_xlim(0, pore["width_nm"])
+    ax.set_xlabel("distance from the lower wall plane (nm)")
+    ax.set_ylabel("density (kg/m³)")
+    ax.set_title(f"Density across the {pore['width_nm']:.3g} nm pore", pad=10)
+    ax.legend(loc="upper center", fontsize=8)
+    fig.tight_layout()
+    return fig
+
+
+FIGURES["real_gas"] = (fig_real_gas, "Z side by side in SI: the ideal-gas law, the "
+                       "simulated model (±2 stderr), the model's equation of state and the "
+                       "real fluid's reference equation (CoolProp).")
+FIGURES["pore_si"] = (fig_pore_si, "Density profile across the slit pore in kg/m³ against "
+                      "nm; dashed: pore average with V between the wall planes.")
+
+
 def figures(run, summary: dict | None = None) -> dict[str, Any]:
     """Every figure that applies to ``run``: name -> matplotlib Figure."""
     if summary is None:

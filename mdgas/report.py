@@ -274,6 +274,12 @@ def _settings_block(run, s: dict) -> str:
                                                                     classes="kv")
 
 
+def _real_gas_block(s: dict) -> str:
+    """The real-gas section (mdgas.statepoint.render_real_gas) as preformatted text."""
+    from .statepoint import render_real_gas
+    return "<pre>" + esc("\n".join(render_real_gas(s["real_gas"]))) + "</pre>"
+
+
 def _provenance_block(run) -> str:
     keys = ("mdgas_version", "git_commit", "started", "finished", "status", "message",
             "source", "seed", "python_version", "numpy_version", "numba_version",
@@ -312,6 +318,8 @@ def run_report(run, path: str | Path | None = None, summary: dict | None = None)
                 "<p>Velocity distributions from production snapshots, and how the "
                 "particles arrange themselves.</p>", "structure",
                 pick("speed", "velocity", "density", "rdf", "snapshot")),
+        *([Section("Real gas in SI units", _real_gas_block(s), "real-gas",
+                   pick("real_gas", "pore_si"))] if s.get("real_gas") else []),
         Section("Settings", _settings_block(run, s), "settings"),
         Section("Provenance", _provenance_block(run), "provenance"),
         cautions_section(),
