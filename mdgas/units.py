@@ -277,9 +277,9 @@ def resolve_quantities(raw: Mapping[str, Any], source: str = "<dict>",
     """Turn every unit string of a raw config into a reduced number; return a new dict.
 
     Bare numbers are left as they are (they are reduced already). A ``gas.pressure``
-    sets ``gas.density`` from the equation of state (:mod:`mdgas.statepoint`); giving
-    both is an error unless ``derive`` is False (re-reading a run file, which stores
-    both: the stored density is kept). ``container.pore_width`` makes the container a
+    sets ``gas.density`` from the equation of state (:mod:`mdgas.statepoint`); a
+    density given as well must be that same result (resolved settings carry both),
+    except with ``derive`` False (re-reading a run file: the stored density is kept). ``container.pore_width`` makes the container a
     slit (walls "z", 9-3 walls for Lennard-Jones particles) unless those keys are
     given. Raises ConfigError for unknown or mismatched units.
     """
@@ -323,12 +323,9 @@ def _pressure_to_density(out: dict, source: str, derive: bool = True) -> None:
     if isinstance(p, bool) or not isinstance(p, (int, float)) or not math.isfinite(p) or p <= 0:
         raise ConfigError(source, "gas.pressure", f"{p!r} is not a positive pressure",
                           "e.g. '50 bar' (with gas.species) or a reduced number")
-    if "density" in gas:
-        if not derive:
-            return  # a run file: keep the density the run used
-        raise ConfigError(source, "gas.density", "given together with gas.pressure",
-                          "give one of the two: with a pressure the density is derived from "
-                          "the equation of state")
+    given = gas.get("density")
+    if given is not None and not derive:
+        return  # reading a run file: keep the density the run used
     model = gas.get("model", config.Gas.model)
     temp = gas.get("temperature", config.Gas.temperature)
     pot = out.get("potential") if isinstance(out.get("potential"), dict) else {}
@@ -338,6 +335,18 @@ def _pressure_to_density(out: dict, source: str, derive: bool = True) -> None:
     state = statepoint.density_for_pressure(
         model, float(temp), float(p), tail=pot.get("tail", config.Potential.tail),
         cutoff=float(pot.get("cutoff", config.Potential.cutoff)), source=source)
+    if given is not None:
+        # Resolved settings (a resumed run, a sweep point's TOML) carry both: accept the
+        # pair when it is the mapping's own result, refuse a density that contradicts it.
+        ok = isinstance(given, (int, float)) and not isinstance(given, bool) \
+            and abs(given - state.density) <= 1e-9 * state.density
+        if not ok:
+            raise ConfigError(source, "gas.density",
+                              f"{given!r} contradicts gas.pressure, which gives "
+                              f"{state.density:.6g} ({state.eos.name})",
+                              "give one of the two: with a pressure the density is derived "
+                              "from the equation of state")
+        return
     gas["density"] = state.density
 
 
