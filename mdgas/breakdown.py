@@ -6,6 +6,8 @@ Method (per group of runs that differ only in density):
 1. Replicas at the same density are combined by their inverse-variance weighted mean.
 2. Walking up in density, the first point with |Z − 1| >= τ and the point before it
    bracket the crossing; its sign s (Z above or below 1) is that of the outer point.
+   If the stderr of Z at those points exceeds half the tolerance, the data cannot tell
+   and the crossing is reported as ``unresolved`` (no number), never guessed.
 3. Z − 1 is fitted against ρ by weighted least squares (weights 1/stderr²) on a local
    window of up to two points on each side of the bracket: a quadratic when the window
    has four points, else a straight line. The crossing ρ* solves s·f(ρ*) = τ inside the
@@ -37,6 +39,9 @@ DENSITY_KEY = "gas.density"
 #: Keys that never define a group (they distinguish replicas or are the swept variable).
 NOT_GROUP = (DENSITY_KEY, "schedule.seed")
 FOUND, BELOW, ABOVE, NO_DATA = "found", "below-grid", "not-reached", "no-data"
+UNRESOLVED = "unresolved"
+#: The data resolve a tolerance τ only where stderr(Z) <= RESOLUTION · τ.
+RESOLUTION = 0.5
 
 
 @dataclass
@@ -181,13 +186,26 @@ def crossing(curve: Curve, tolerance: float, b2: float | None = None) -> Crossin
     if n == 0:
         return out
     over = np.flatnonzero(np.abs(y) >= tau)
+
+    def unresolved(idx) -> Crossing:
+        worst = float(np.max(e[idx]))
+        out.status = UNRESOLVED
+        out.note = (f"stderr(Z) up to {100 * worst:.2g}% where it matters, more than "
+                    f"{RESOLUTION:g} × the {tolerance:g}% tolerance; lengthen production "
+                    "(schedule.produce or schedule.target_stderr)")
+        return out
+
     if len(over) == 0:
+        if e[-1] > RESOLUTION * tau:
+            return unresolved([n - 1])
         out.status, out.bracket = ABOVE, (float(rho[-1]), math.inf)
         out.note = f"|Z − 1| < {tolerance:g}% up to ρ = {rho[-1]:.4g}"
         return out
     i = int(over[0])
     s = 1 if y[i] > 0 else -1
     out.sign = s
+    if e[max(0, i - 1):i + 1].max() > RESOLUTION * tau:
+        return unresolved(list(range(max(0, i - 1), i + 1)))
     if i == 0:
         out.status, out.bracket = BELOW, (0.0, float(rho[0]))
         out.note = f"|Z − 1| >= {tolerance:g}% already at the lowest density ρ = {rho[0]:.4g}"

@@ -81,6 +81,17 @@ def test_statuses_at_the_edges_of_the_grid():
     assert bd.find(failed, [], [1.0]) == []
 
 
+def test_noise_larger_than_half_the_tolerance_is_unresolved_not_a_crossing():
+    rho = np.array([0.01, 0.02, 0.04])
+    noisy = bd.find(_rows(rho, [1.02, 0.99, 1.03], [0.015] * 3), [], [1.0, 5.0])
+    # 1.5 % error bars cannot resolve 1 % (> 0.5 %), but can resolve 5 % (< 2.5 %).
+    assert [c.status for c in noisy] == [bd.UNRESOLVED, bd.ABOVE]
+    assert noisy[0].density is None and "lengthen production" in noisy[0].note
+    # The same means with small error bars do give answers.
+    sharp = bd.find(_rows(rho, [1.02, 0.99, 1.03], [0.001] * 3), [], [1.0, 5.0])
+    assert [c.status for c in sharp] == [bd.BELOW, bd.ABOVE]
+
+
 def test_replicas_are_combined_by_inverse_variance():
     rho = np.array([0.01, 0.02, 0.03])
     rows = _rows(rho, [1.0, 1.01, 1.02], [0.002] * 3) + _rows(rho, [1.002, 1.012, 1.022],

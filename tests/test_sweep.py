@@ -295,3 +295,34 @@ def test_cli_sweep_runs_and_reports_failures_with_exit_1(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "2 complete, 2 failed" in out and "sample_every" in out
     assert (tmp_path / "o" / "breakdown.csv").is_file()
+
+
+def test_plot_and_report_of_a_sweep_folder(tmp_path, capsys):
+    from mdgas.cli import main
+    path = _write(tmp_path, '[axes]\n"gas.temperature" = [1.0, 2.0]\n"gas.density" = [0.01, 0.03]\n')
+    assert main(["sweep", str(path), "-o", str(tmp_path / "o"), "--workers", "1", "-q"]) == 0
+    capsys.readouterr()
+    assert main(["plot", str(tmp_path / "o")]) == 0
+    written = [Path(p) for p in capsys.readouterr().out.split()]
+    assert {p.name for p in written} == {"s-map.png", "s-isotherms-density.png",
+                                         "s-isotherms-pressure.png"}
+    assert all(p.stat().st_size > 5000 for p in written)
+    assert main(["report", str(tmp_path / "o")]) == 0
+    html = (tmp_path / "o" / "report.html").read_text()
+    assert html.startswith("<!DOCTYPE html>") and "data:image/png;base64," in html
+    for text in ("Breakdown", "density0.03_", "Sweep file"):
+        assert text in html
+    # Tiny ideal-gas runs: PV = NkT holds, so no crossing can be claimed.
+    assert "not-reached" in html or "unresolved" in html
+    assert "found" not in html.split('id="breakdown"')[1].split("</table>")[0]
+
+
+def test_example_sweep_files_expand_to_valid_runs():
+    configs = Path(__file__).resolve().parents[1] / "configs"
+    sweeps = [f for f in sorted(configs.glob("sweep-*.toml"))
+              if not f.name.startswith("sweep-base-")]  # sweep-base-*: a sweep's base config
+    assert len(sweeps) >= 3
+    for f in sweeps:
+        assert f.read_text().lstrip().startswith("#")
+        pts = sweep.load(f).expand()
+        assert pts and all(p.settings is not None for p in pts), f
