@@ -99,8 +99,26 @@ def test_run_file_stores_the_unit_system(run_in):
     reduced = run_in(None, **{"schedule.produce": 10.0, "schedule.equilibrate": 1.0,
                               "gas.particles": 100})
     assert store.read_unit_system(reduced.path)["system"] == "reduced"
-    assert run.summary()["real_gas"]["temperature_set_K"] == pytest.approx(300.0, rel=1e-12)
+    summ = run.summary()
+    assert summ["real_gas"]["temperature_set_K"] == pytest.approx(300.0, rel=1e-12)
     assert "real_gas" not in reduced.summary()
+    # The report carries the SI section and the cautions for pressurised gas.
+    from mdgas import report
+    page = report.run_report(run, summary=summ)
+    assert "Real gas in SI units" in page and "pressure-equipment codes" in page
+    assert "bar" in page and "kg/m³" in page
+
+
+def test_check_prints_the_state_in_si(capsys):
+    from pathlib import Path
+
+    from mdgas import cli
+    cfg = Path(__file__).resolve().parents[1] / "configs" / "argon-pore-5nm.toml"
+    assert cli.main(["check", str(cfg)]) == 0
+    out = capsys.readouterr().out
+    assert "the same state in SI units" in out
+    assert "5 nm between the wall planes" in out and "300 K" in out
+    assert "Model estimates only" in out
 
 
 # -- argon on the 300 K isotherm against its reference equation ----------------------------------
