@@ -34,6 +34,19 @@ def _settings(args) -> "Any":
 
 # -- run / check ----------------------------------------------------------------------
 
+def set_threads(n: int | None) -> None:
+    """Set the engine kernels' thread count (``--threads``); None keeps numba's default,
+    which NUMBA_NUM_THREADS sets."""
+    if n is None:
+        return
+    import numba
+    top = numba.config.NUMBA_NUM_THREADS
+    if not 1 <= n <= top:
+        raise UserError(f"--threads {n}: give a number from 1 to {top} (the most this process "
+                        "may use; NUMBA_NUM_THREADS raises the limit)")
+    numba.set_num_threads(n)
+
+
 @command("run")
 def cmd_run(args) -> int:
     from .driver import simulate
@@ -41,6 +54,7 @@ def cmd_run(args) -> int:
     from .analysis.summary import render_text
     settings = _settings(args)
     out = Path(args.output or settings.output.path)
+    set_threads(getattr(args, "threads", None))
     _print_warnings(settings)
     print(f"mdgas: running {settings.gas.model} N={settings.gas.particles} "
           f"-> {out}", file=sys.stderr)
@@ -233,6 +247,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="override a config key, e.g. --set gas.density=0.05 (repeatable)")
     r.add_argument("--force", action="store_true", help="overwrite an existing run file")
     r.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
+    r.add_argument("--threads", type=int, metavar="N",
+                   help="compute threads for the engine kernels (default: NUMBA_NUM_THREADS "
+                        "or all cores)")
 
     c = sub.add_parser("check", help="validate a config and print derived figures")
     c.add_argument("config")
@@ -308,8 +325,11 @@ def _route_warnings() -> None:
     from .store import RunFileWarning
     default = warnings.showwarning
 
+    here = str(Path(__file__).resolve().parent)
+
     def show(message, category, filename, lineno, file=None, line=None):
-        if issubclass(category, RunFileWarning):
+        if issubclass(category, RunFileWarning) or (
+                issubclass(category, UserWarning) and str(filename).startswith(here)):
             print(f"mdgas: warning: {message}", file=sys.stderr)
         else:
             default(message, category, filename, lineno, file, line)

@@ -240,6 +240,15 @@ def _check_section_name(name: str, source: str) -> None:
                           _suggest(name, SECTIONS) or f"sections are {', '.join(SECTIONS)}")
 
 
+def _key_outside_section(name: str, source: str) -> None:
+    """A ``key = value`` above every [section] header: say which section it belongs to."""
+    homes = [sec for sec, cls in SECTIONS.items()
+             if name in {f.name for f in dataclasses.fields(cls)}]
+    if homes:
+        raise ConfigError(source, name, "is a key outside any section",
+                          f"put it below a [{homes[0]}] header")
+
+
 def _suggest(word: str, options) -> str:
     close = difflib.get_close_matches(word, list(options), n=1, cutoff=0.5)
     return f"did you mean '{close[0]}'?" if close else ""
@@ -258,6 +267,8 @@ def from_dict(raw: Mapping[str, Any], source: str = "<dict>", text: str = "",
     raw = resolve_quantities(raw, source, derive=check_model)
     sections: dict[str, Any] = {}
     for name, value in raw.items():
+        if name not in SECTIONS and not isinstance(value, Mapping):
+            _key_outside_section(name, source)
         _check_section_name(name, source)
         if not isinstance(value, Mapping):
             raise ConfigError(source, name, "must be a table", f"write [{name}] and keys below it")

@@ -74,10 +74,10 @@ def resume(path: str | Path, *, progress: bool | None = None) -> Path:
     """Continue a run from its last checkpoint; returns the path once it is complete."""
     from . import config
     p = Path(path)
-    if p.exists() and not p.is_dir():
-        # A write that failed on a full disk leaves the file shorter than HDF5 expects.
-        repair_truncated(p)
-    raw = read_run(p)
+    raw = read_run(p)  # reads a truncated file from a padded copy, or says why it cannot
+    # A write that failed on a full disk leaves the file shorter than HDF5 expects;
+    # padding it to its recorded length lets HDF5 open it for writing again.
+    repair_truncated(p)
     meta = raw["meta"]
     status = meta.get("status", "")
     if status == STATUS_COMPLETE:
