@@ -53,7 +53,7 @@ def sample_row(settings, engine, state: dict, acc: np.ndarray, duration: float) 
 
     Wall pressures are the chunk's momentum transfer per area per time; the virial
     pressure tensor is (kinetic snapshot + time-averaged pair virial) / V, plus the
-    engine's tail correction.
+    engine's tail correction; its kinetic part is scaled to N k T_kin / V.
     """
     n, box, vol = settings.gas.particles, settings.box, settings.volume
     area = np.array([box[1] * box[2], box[1] * box[2], box[0] * box[2], box[0] * box[2],
@@ -62,7 +62,12 @@ def sample_row(settings, engine, state: dict, acc: np.ndarray, duration: float) 
     ke = 0.5 * kin.sum()
     pot = acc[POTENTIAL] / duration + n * engine.energy_tail
     wall_u = acc[WALL_ENERGY] / duration
-    ptensor = (kin + acc[VIRIAL:VIRIAL + 3] / duration) / vol + engine.pressure_tail
+    # Kinetic part N k T_kin / V per axis (common practice: P = ρkT + W/3V with the
+    # kinetic temperature): in a periodic box T_kin counts 3N - 3 degrees of freedom, so
+    # the bare Σ m v² would read Z = 1 - 1/N for an ideal gas.
+    dof = kinetic_dof(settings)
+    ptensor = (kin * (3.0 * n / dof) + acc[VIRIAL:VIRIAL + 3] / duration) / vol \
+        + engine.pressure_tail
     return {
         "pressure_wall": acc[IMPULSE:IMPULSE + 6] / (area * duration),
         "wall_hits": acc[HITS:HITS + 6].copy(),
