@@ -111,3 +111,14 @@ def test_periodic_box_conserves_momentum_and_wraps(run_in):
     pos = run.final_state["positions"]
     assert (pos >= 0).all() and (pos < run.settings.box).all()
     assert run.summary()["pressure_wall"] is None
+
+
+def test_periodic_ideal_gas_virial_pressure_is_exactly_nkt_over_v(run_in):
+    # P = ρ k T_kin with T_kin over 3N - 3 degrees of freedom (common practice); for
+    # point particles there is no pair virial, so Z must be 1 to round-off.
+    run = run_in(None, **{**BOX, "gas.particles": 256, "container.walls": "none",
+                          "schedule.produce": 20.0})
+    _, pv = run.series("pressure_virial")
+    _, temp = run.series("temperature")
+    assert np.allclose(pv, run.settings.gas.density * temp, rtol=1e-12)
+    assert abs(run.summary()["Z"]["mean"] - 1.0) < 1e-9
