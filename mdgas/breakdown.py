@@ -37,7 +37,7 @@ import numpy as np
 
 DENSITY_KEY = "gas.density"
 #: Keys that never define a group (they distinguish replicas or are the swept variable).
-NOT_GROUP = (DENSITY_KEY, "schedule.seed")
+NOT_GROUP = (DENSITY_KEY, "gas.pressure", "schedule.seed")  # a pressure sets the density
 FOUND, BELOW, ABOVE, NO_DATA = "found", "below-grid", "not-reached", "no-data"
 UNRESOLVED = "unresolved"
 #: The data resolve a tolerance τ only where stderr(Z) <= RESOLUTION · τ.
