@@ -264,7 +264,16 @@ def from_dict(raw: Mapping[str, Any], source: str = "<dict>", text: str = "",
     if not isinstance(raw, Mapping):
         raise ConfigError(source, "", "the config must be a table of sections")
     from .units import resolve_quantities
-    raw = resolve_quantities(raw, source, derive=check_model)
+    try:
+        raw = resolve_quantities(raw, source, derive=check_model)
+    except ConfigError:
+        raise
+    except (TypeError, ValueError, ArithmeticError, AttributeError, KeyError) as exc:
+        # A value of the wrong type reached the unit conversion before validation.
+        raise ConfigError(source, "", f"the units, species or pressure settings cannot be "
+                          f"read ({exc.__class__.__name__}: {exc})",
+                          "check the types of gas.pressure, gas.species and the keys they "
+                          "use, e.g. potential.cutoff must be a number") from None
     sections: dict[str, Any] = {}
     for name, value in raw.items():
         if name not in SECTIONS and not isinstance(value, Mapping):
