@@ -87,6 +87,18 @@ def test_quantities_become_reduced_numbers():
     assert s.output.sample_every == pytest.approx(2e-12 / ARGON.time, rel=1e-12)
 
 
+def test_wall_keys_take_units():
+    s = _settings({"temperature": "300 K"},
+                  container={"wall_epsilon": "119.8 K", "wall_sigma": "0.3405 nm",
+                             "wall_cutoff": "1 nm", "wall": "thermal",
+                             "wall_temperature": "350 K"})
+    c = s.container
+    assert c.wall_epsilon == pytest.approx(1.0, rel=1e-12)
+    assert c.wall_sigma == pytest.approx(1.0, rel=1e-12)
+    assert c.wall_cutoff == pytest.approx(1e-9 / ARGON.sigma, rel=1e-12)
+    assert c.wall_temperature == pytest.approx(350.0 / 119.8, rel=1e-12)
+
+
 def test_molar_concentration_and_celsius_and_molar_energy():
     s = _settings({"temperature": "26.85 degC", "density": "0.4 mol/L", "epsilon": "1 kJ/mol"})
     eps = 1e3 / units.N_A
