@@ -10,7 +10,7 @@ import pytest
 from mdgas import config
 from mdgas.engines import get_engine
 from mdgas.engines.cells import (build_neighbour_list, cell_grid, image_arrays,
-                                 sort_by_cell)
+                                 mirror_half_list, sort_by_cell)
 from mdgas.engines.verlet import lj_pair, pair_forces_brute, tail_corrections
 from mdgas.engines.walls import lj93_minimum, lj93_potential
 from mdgas.observe import new_accumulator
@@ -95,7 +95,8 @@ def test_list_is_complete_and_exact():
             widest = build_neighbour_list(pos, lp, ilp, nc, cell_start, rlist ** 2, half, nbr,
                                           count)
             assert widest > 4
-            nbr = np.zeros((n, widest), np.int32)
+            room = int((r2 < rlist ** 2).sum(axis=1).max()) if half else widest
+            nbr = np.zeros((n, room), np.int32)
             assert build_neighbour_list(pos, lp, ilp, nc, cell_start, rlist ** 2, half, nbr,
                                         count) == widest
             for i in range(n):
@@ -104,6 +105,11 @@ def test_list_is_complete_and_exact():
                     want = {j for j in want if j > i}
                 got = list(nbr[i, :count[i]])
                 assert len(got) == len(set(got)) and set(got) == want
+            if half:   # the mirrored half list is the full list
+                full_longest = int((r2 < rlist ** 2).sum(axis=1).max())
+                assert mirror_half_list(nbr, count, np.zeros(n, np.int64)) == full_longest
+                for i in range(n):
+                    assert set(nbr[i, :count[i]]) == set(np.nonzero(r2[i] < rlist ** 2)[0])
 
 
 def test_forces_are_minus_the_energy_gradient():

@@ -138,6 +138,27 @@ def collision_figures(run) -> dict[str, Any]:
             "mean_free_path": mfp}
 
 
+def energy_figures(run) -> dict[str, Any]:
+    """Energy figures per particle (ε), JSON-ready.
+
+    ``potential_energy``: pair (+ wall) energy per particle, with the engine's tail
+    correction where chosen. ``energy_drift``: relative drift of the total energy over
+    production, slope × (t_end − t_start) / |mean E| of a straight-line fit to
+    E(t) − W(t), E the chunk-averaged total energy (series ``energy_mean``), W the
+    cumulative energy the thermostat added (0 in plain NVE); None with fewer than 3
+    samples or E = 0.
+    """
+    t, pot = run.series("potential_energy")
+    _, etot = run.series("energy_mean" if "energy_mean" in run.observables else "total_energy")
+    _, work = run.series("thermostat_work")
+    e = etot - np.cumsum(work) / run.settings.gas.particles
+    drift = None
+    if len(t) >= 3 and np.all(np.isfinite(e)) and abs(e.mean()) > 0:
+        slope = np.polyfit(t, e, 1)[0]
+        drift = float(slope * (t[-1] - t[0]) / abs(e.mean()))
+    return {"potential_energy": estimate(pot).as_json(), "energy_drift": drift}
+
+
 def summarize(run) -> dict[str, Any]:
     """The summary as a JSON-ready dict (see README, "Summary keys").
 
@@ -189,6 +210,7 @@ def summarize(run) -> dict[str, Any]:
         "warnings": warnings,
     }
     out.update(collision_figures(run))
+    out.update(energy_figures(run))
     out.update(_assessment(run, full_run, out, t_est, p_est, z, kind, n_eff, cut))
     return out
 

@@ -151,10 +151,12 @@ def build_neighbour_list(pos, lp, ilp, ncell, cell_start, rlist2, half, nbr, cou
     for c in range(ncells):
         longest = max(longest, cell_start[c + 1] - cell_start[c])
     buf_len = 3 * longest + 1
+    row_len = 27 * longest + 1
     nchunk = min(ncells, 64 * max(1, n // 4096 + 1))
     widest = 0
     for t in prange(nchunk):
         buf = np.empty(buf_len)
+        row = np.empty(row_len, np.int32)
         xs = np.empty(3, np.int64)
         ys = np.empty(3, np.int64)
         zlo = np.empty(2, np.int64)
@@ -174,10 +176,10 @@ def build_neighbour_list(pos, lp, ilp, ncell, cell_start, rlist2, half, nbr, cou
                 m = 0
                 for a in range(mx):
                     for b in range(my):
-                        row = (xs[a] * ny + ys[b]) * nz
+                        base = (xs[a] * ny + ys[b]) * nz
                         for r in range(mz):
-                            lo = cell_start[row + zlo[r]]
-                            hi = cell_start[row + zhi[r] + 1]
+                            lo = cell_start[base + zlo[r]]
+                            hi = cell_start[base + zhi[r] + 1]
                             if half and lo <= i:
                                 lo = i + 1
                             if hi <= lo:
@@ -190,12 +192,15 @@ def build_neighbour_list(pos, lp, ilp, ncell, cell_start, rlist2, half, nbr, cou
                                 dy -= lp[1] * np.rint(dy * ilp[1])
                                 dz -= lp[2] * np.rint(dz * ilp[2])
                                 buf[j - lo] = dx * dx + dy * dy + dz * dz
-                            for j in range(lo, hi):
-                                if buf[j - lo] < rlist2 and j != i:
-                                    if m < cap:
-                                        nbr[i, m] = j
-                                    m += 1
-                count[i] = min(m, cap)
+                            if lo <= i < hi:
+                                buf[i - lo] = np.inf
+                            for j in range(lo, hi):   # branch-free filter
+                                row[m] = j
+                                m += buf[j - lo] < rlist2
+                keep = min(m, cap)
+                for k in range(keep):
+                    nbr[i, k] = row[k]
+                count[i] = keep
                 local_widest = max(local_widest, m)
         widest = max(widest, local_widest)
     return widest
@@ -232,3 +237,36 @@ def list_capacity(density: float, rlist: float, half: bool) -> int:
     fluctuations (rows grow automatically when a build finds more)."""
     mean = density * 4.0 / 3.0 * math.pi * rlist ** 3
     return int(math.ceil(1.3 * mean + 6.0 * math.sqrt(mean + 1.0) + 8.0))
+
+
+@njit(cache=True, error_model="numpy")
+def mirror_half_list(nbr, count, fill):
+    """Turn a half list into a full one in place: row i keeps its j > i and gets every
+    k < i whose row holds i appended (in increasing k). Building half and mirroring
+    computes each distance once instead of twice.
+
+    ``fill`` (N,) int64 is scratch. Returns the longest full row; when that exceeds the
+    capacity nothing is changed and the caller grows ``nbr`` and builds again.
+    """
+    n = nbr.shape[0]
+    cap = nbr.shape[1]
+    for i in range(n):
+        fill[i] = count[i]
+    for i in range(n):
+        for k in range(count[i]):
+            fill[nbr[i, k]] += 1
+    widest = 0
+    for i in range(n):
+        widest = max(widest, fill[i])
+    if widest > cap:
+        return widest
+    for i in range(n):
+        fill[i] = count[i]
+    for i in range(n):
+        for k in range(count[i]):
+            j = nbr[i, k]
+            nbr[j, fill[j]] = i
+            fill[j] += 1
+    for i in range(n):
+        count[i] = fill[i]
+    return widest

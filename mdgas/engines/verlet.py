@@ -39,11 +39,11 @@ import numpy as np
 from numba import njit, prange
 
 from ..errors import ConfigError, InstabilityError
-from ..observe import IMPULSE, POTENTIAL, REBUILDS, STEPS, THERMOSTAT, VIRIAL, WALL_ENERGY, \
-    kinetic_dof
+from ..observe import IMPULSE, KINETIC, POTENTIAL, REBUILDS, STEPS, THERMOSTAT, VIRIAL, \
+    WALL_ENERGY, kinetic_dof
 from . import Engine, register
 from .cells import (build_neighbour_list, cell_grid, image_arrays, list_capacity,
-                    max_displacement_pair, permute_rows, sort_by_cell)
+                    max_displacement_pair, mirror_half_list, permute_rows, sort_by_cell)
 from .rng import normal, seed_state, uniform
 from .start import lattice_positions, maxwell_boltzmann
 from .walls import LJ93, WALL_CODES, hard_wall_bounce, lj93_minimum, lj93_potential, \
@@ -297,10 +297,14 @@ def _rebuild(x, v, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3, itm
         itmp[k] = ids[order[k]]
     for k in range(n):
         ids[k] = itmp[k]
-    widest = build_neighbour_list(x, lp, ilp, ncell, cell_start, rlist2, half, nbr, count)
-    while widest > nbr.shape[1]:
+    while True:
+        # Always a half build (each distance once); a full list is its mirror image.
+        widest = build_neighbour_list(x, lp, ilp, ncell, cell_start, rlist2, True, nbr, count)
+        if widest <= nbr.shape[1] and not half:
+            widest = mirror_half_list(nbr, count, cell_tmp)
+        if widest <= nbr.shape[1]:
+            break
         nbr = np.empty((n, widest + widest // 4 + 8), np.int32)
-        widest = build_neighbour_list(x, lp, ilp, ncell, cell_start, rlist2, half, nbr, count)
     for k in range(n):
         for a in range(3):
             xref[k, a] = x[k, a]
@@ -408,6 +412,7 @@ def verlet_chunk(nsteps, x, v, f, ids, xref, nbr, count, cell_start, order, cell
             acc[THERMOSTAT] += (alpha * alpha - 1.0) * ke
             ke *= alpha * alpha
         acc[POTENTIAL] += u * dt
+        acc[KINETIC] += ke * dt
         acc[VIRIAL] += wx * dt
         acc[VIRIAL + 1] += wy * dt
         acc[VIRIAL + 2] += wz * dt
@@ -636,10 +641,14 @@ class LennardJones(Engine):
             else:
                 what = ("the kinetic energy blew up (became NaN or exceeded "
                         f"{BLOWUP_FACTOR:g} times its set value): particles came too close")
+            self._problem = f"{what} at t = {t_fail:.6g} τ"
             raise InstabilityError(
                 f"the run became unstable at t = {t_fail:.6g} τ: {what}. Data up to the last "
                 f"sample is kept. Try a smaller schedule.timestep (now {dt} τ), a lower "
                 "density or temperature, or a longer schedule.equilibrate with the thermostat.")
+
+    def health(self, state) -> str:
+        return getattr(self, "_problem", "") or super().health(state)
 
     # -- helpers for analysis and tests ----------------------------------------------
     def energy(self, state) -> float:
