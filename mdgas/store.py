@@ -34,6 +34,7 @@ import struct
 import subprocess
 import tempfile
 import warnings
+import zlib
 from pathlib import Path
 from typing import Any
 
@@ -48,6 +49,12 @@ STATUS_RUNNING, STATUS_COMPLETE = "running", "complete"
 STATUS_INTERRUPTED, STATUS_FAILED = "interrupted", "failed"
 CHECKPOINT = "mdgas/checkpoint"
 SLOTS = ("slot0", "slot1")
+
+#: Samples per stored chunk of a time series. Checksummed (filtered) chunks move to the
+#: end of the file whenever they are rewritten, so only the last, partly filled chunk of
+#: each series sits where a crash or a cut-off tail can hit it; small chunks keep all
+#: earlier samples in full chunks that never move.
+SERIES_CHUNK = 256
 
 #: Units of each time series in observables/ (reduced units).
 OBSERVABLE_UNITS = {
@@ -245,11 +252,13 @@ class RunWriter:
     def _series(self, name: str, sample_shape: tuple[int, ...], dtype=float) -> h5py.Group:
         g = self.file.require_group(f"observables/{name}")
         if "value" not in g:
-            g.create_dataset("step", shape=(0,), maxshape=(None,), dtype=np.int64, chunks=(1024,),
+            g.create_dataset("step", shape=(0,), maxshape=(None,), dtype=np.int64,
+                             chunks=(SERIES_CHUNK,),
                              fletcher32=True)
-            g.create_dataset("time", shape=(0,), maxshape=(None,), dtype=float, chunks=(1024,),
+            g.create_dataset("time", shape=(0,), maxshape=(None,), dtype=float,
+                             chunks=(SERIES_CHUNK,),
                              fletcher32=True)
-            chunk = (max(1, 4096 // max(1, int(np.prod(sample_shape)))),) + sample_shape
+            chunk = (SERIES_CHUNK,) + sample_shape
             g.create_dataset("value", shape=(0,) + sample_shape, maxshape=(None,) + sample_shape,
                              dtype=dtype, chunks=chunk, fletcher32=True)
             g["value"].attrs["unit"] = OBSERVABLE_UNITS.get(name, "")
@@ -407,16 +416,32 @@ def read_unit_system(path: str | os.PathLike) -> dict[str, Any]:
 
 
 def _write_arrays(group: h5py.Group, arrays: dict[str, np.ndarray]) -> None:
-    """Write every array into ``group``: in place when the shape and type match."""
+    """Write every array into ``group``: in place when the shape and type match.
+
+    Each dataset carries the CRC-32 of its bytes (attribute ``crc32``) so that a
+    reader can tell a damaged state or histogram from an intact one.
+    """
     for k, v in arrays.items():
         v = np.asarray(v)
         ds = group.get(k)
         if ds is not None and ds.shape == v.shape and ds.dtype == v.dtype:
             ds[...] = v
-            continue
-        if ds is not None:
-            del group[k]
-        group.create_dataset(k, data=v)
+        else:
+            if ds is not None:
+                del group[k]
+            ds = group.create_dataset(k, data=v)
+        ds.attrs["crc32"] = np.uint32(zlib.crc32(v.tobytes()))
+
+
+def _read_verified(ds: h5py.Dataset, valid_size: int | None) -> tuple[np.ndarray, str]:
+    """A whole dataset written by _write_arrays, and a note if it is damaged."""
+    data, note = _read_prefix(ds, valid_size)
+    if note:
+        return data, note
+    crc = ds.attrs.get("crc32")
+    if crc is not None and zlib.crc32(np.asarray(data).tobytes()) != int(crc):
+        return data, "damaged (checksum mismatch)"
+    return data, ""
 
 
 def repair_truncated(path: Path) -> bool:
@@ -496,7 +521,10 @@ def open_run_file(path: str | os.PathLike) -> h5py.File:
     try:
         ok = "mdgas" in f and "layout_version" in f["mdgas"].attrs
     except (OSError, KeyError, RuntimeError):
-        ok = False
+        f.close()
+        raise RunFileError(f"{p}: the run's bookkeeping (mdgas/ group and its attributes) "
+                           "is damaged, so the file cannot be read as a run; run the config "
+                           "again") from None
     if not ok:
         f.close()
         raise RunFileError(f"{p}: an HDF5 file, but not an mdgas run file (no mdgas/ "
@@ -577,7 +605,7 @@ def read_run(path: str | os.PathLike) -> dict[str, Any]:
     """
     f, damage, tmp = _open_salvage(path)
     try:
-        out = _read_open(f, damage, getattr(f, "_mdgas_valid_size", None))
+        out = _read_open(f, damage, getattr(f, "_mdgas_valid_size", None), Path(path))
     finally:
         f.close()
         if tmp is not None:
@@ -588,31 +616,38 @@ def read_run(path: str | os.PathLike) -> dict[str, Any]:
     return out
 
 
-def _read_open(f: h5py.File, damage: list[str], valid: int | None) -> dict[str, Any]:
-    meta = dict(f["mdgas"].attrs)
+def _read_open(f: h5py.File, damage: list[str], valid: int | None,
+               path: Path) -> dict[str, Any]:
+    meta = _safe_attrs(f["mdgas"], "mdgas", damage, path)
     if "parameters" not in f:
-        raise RunFileError(f"{f.filename}: the parameters/ group is missing, so the run "
+        raise RunFileError(f"{path}: the parameters/ group is missing, so the run "
                            "cannot be interpreted; run the config again")
     params = {}
     for section, g in f["parameters"].items():
         if isinstance(g, h5py.Group) and section != UNITS_GROUP:
-            unset = set(_plain(g.attrs.get("_unset", [])))
+            attrs = _safe_attrs(g, f"parameters/{section}", None, path)
+            unset = set(_plain(attrs.get("_unset", [])))
             params[section] = {k: (None if k in unset else _plain(v))
-                               for k, v in g.attrs.items() if k != "_unset"}
+                               for k, v in attrs.items() if k != "_unset"}
     try:
         text = f["parameters/config_text"][()]
     except (KeyError, OSError):
         text, _ = b"", damage.append("parameters/config_text is missing")
     obs: dict[str, np.ndarray] = {}
     times = None
-    for name, g in (f["observables"].items() if "observables" in f else []):
+    try:
+        groups = list(f["observables"].items()) if "observables" in f else []
+    except (OSError, RuntimeError, KeyError) as exc:
+        groups = []
+        damage.append(f"observables/ is unreadable ({_first_line(exc)})")
+    for name, g in groups:
         if name == "histograms":
             continue
         try:
             value, n1 = _read_prefix(g["value"], valid)
             t, n2 = _read_prefix(g["time"], valid)
-        except (KeyError, OSError, RuntimeError) as exc:
-            damage.append(f"observables/{name} is unreadable ({exc})")
+        except (KeyError, OSError, RuntimeError, AttributeError) as exc:
+            damage.append(f"observables/{name} is unreadable ({_first_line(exc)})")
             continue
         for note in (n1, n2):
             if note:
@@ -625,28 +660,44 @@ def _read_open(f: h5py.File, damage: list[str], valid: int | None) -> dict[str, 
         # samples every series has.
         obs = {k: v[:n] for k, v in obs.items()}
         times = times[:n]
+    if not obs and any("observables" in d for d in damage):
+        raise RunFileError(f"{path}: no time series can be read (" + "; ".join(damage) +
+                           "); nothing is left to analyse, run the config again")
+    lost = [name for name in OBSERVABLE_UNITS if name not in obs]
+    if lost and obs:
+        damage.append(f"time series lost: {', '.join(lost)}")
     hist = {}
-    if "observables/histograms" in f:
-        for k, v in f["observables/histograms"].items():
-            data, note = _read_prefix(v, valid)
-            if note:
-                damage.append(f"observables/histograms/{k}: {note}")
-            else:
-                hist[k] = data
+    try:
+        if "observables/histograms" in f:
+            for k, v in f["observables/histograms"].items():
+                data, note = _read_verified(v, valid)
+                if note:
+                    damage.append(f"observables/histograms/{k}: {note}")
+                else:
+                    hist[k] = data
+    except (OSError, RuntimeError, KeyError) as exc:
+        hist = {}
+        damage.append(f"observables/histograms is unreadable ({_first_line(exc)})")
     n_frames = 0
-    if f"{GROUP}/position/time" in f:
-        n_frames = min(f[f"{GROUP}/position/time"].shape[0],
-                       f[f"{GROUP}/velocity/time"].shape[0]) if f"{GROUP}/velocity/time" in f \
-            else 0
+    try:
+        if f"{GROUP}/position/time" in f and f"{GROUP}/velocity/time" in f:
+            n_frames = min(f[f"{GROUP}/position/time"].shape[0],
+                           f[f"{GROUP}/velocity/time"].shape[0])
+    except (OSError, RuntimeError, KeyError) as exc:
+        damage.append(f"the trajectory frames are unreadable ({_first_line(exc)})")
     final = {}
-    if "mdgas/final" in f:
-        for k, v in f["mdgas/final"].items():
-            data, note = _read_prefix(v, valid)
-            if note:
-                damage.append(f"mdgas/final/{k}: {note}")
-                final = {}
-                break
-            final[k] = data
+    try:
+        if "mdgas/final" in f:
+            for k, v in f["mdgas/final"].items():
+                data, note = _read_verified(v, valid)
+                if note:
+                    damage.append(f"mdgas/final/{k}: {note}")
+                    final = {}
+                    break
+                final[k] = data
+    except (OSError, RuntimeError, KeyError) as exc:
+        final = {}
+        damage.append(f"mdgas/final is unreadable ({_first_line(exc)})")
     status = _plain(meta.get("status", ""))
     if status == STATUS_COMPLETE and not final:
         damage.append("the final state (mdgas/final) is missing")
@@ -671,10 +722,16 @@ def read_checkpoint(path: str | os.PathLike) -> dict[str, Any] | None:
                 continue
             try:
                 slot = root[name]
-                return {"state": {k: v[()] for k, v in slot["state"].items()},
-                        "histograms": {k: v[()] for k, v in slot["histograms"].items()},
-                        "counters": {k: _plain(v) for k, v in slot["counters"].attrs.items()},
-                        "seq": seq, "slot": name}
+                arrays = {}
+                for part in ("state", "histograms"):
+                    arrays[part] = {}
+                    for k, v in slot[part].items():
+                        data, note = _read_verified(v, None)
+                        if note:
+                            raise OSError(note)
+                        arrays[part][k] = data
+                return {**arrays, "seq": seq, "slot": name,
+                        "counters": {k: _plain(v) for k, v in slot["counters"].attrs.items()}}
             except (KeyError, OSError, RuntimeError):
                 continue  # this slot is damaged: fall back to the other one
     return None
@@ -705,6 +762,33 @@ def estimate_file_bytes(settings, state_bytes: int) -> int:
     frames = 0 if s.output.frame_every <= 0 else produce / s.output.frame_every + 1
     frame_bytes = s.gas.particles * 6 * 8  # random doubles hardly compress
     return int(n_samples * sample_bytes + frames * frame_bytes + 4 * state_bytes + 2 ** 20)
+
+
+def _safe_attrs(obj, where: str, damage: list[str] | None, path: Path) -> dict[str, Any]:
+    """An object's attributes, skipping damaged ones (noted in ``damage``); with
+    ``damage`` None a damaged attribute is fatal (parameters cannot be guessed)."""
+    try:
+        names = list(obj.attrs.keys())
+    except (OSError, RuntimeError, KeyError) as exc:
+        raise RunFileError(f"{path}: the attributes of {where}/ are damaged "
+                           f"({_first_line(exc)}); the run cannot be interpreted, run the "
+                           "config again") from None
+    out = {}
+    for name in names:
+        try:
+            out[name] = obj.attrs[name]
+        except (OSError, RuntimeError, KeyError) as exc:
+            if damage is None:
+                raise RunFileError(f"{path}: {where}/@{name} is damaged ({_first_line(exc)}); "
+                                   "the run cannot be interpreted, run the config again"
+                                   ) from None
+            damage.append(f"{where}/@{name} is damaged")
+    return out
+
+
+def _first_line(exc: BaseException) -> str:
+    text = str(exc)
+    return text.splitlines()[0][:120] if text else exc.__class__.__name__
 
 
 def _plain(v: Any) -> Any:
