@@ -102,3 +102,11 @@ def test_ratio_series_keeps_correlation():
     num = 2.0 + 0.1 * rng.normal(size=20000)
     r = S.ratio_series(num, np.ones(20000))
     assert r.stderr == pytest.approx(0.1 / np.sqrt(20000), rel=0.1)
+
+
+def test_very_short_series_get_the_naive_error_not_a_crash():
+    from mdgas.analysis.statistics import block_stderr
+    x = np.array([1.0, 2.0, 4.0, 3.0, 5.0])
+    se, size = block_stderr(x)
+    assert size == 1
+    assert se == pytest.approx(x.std(ddof=1) / np.sqrt(len(x)))

@@ -106,6 +106,8 @@ def block_stderr(x: np.ndarray) -> tuple[float, int]:
                 k += 1
             return float(np.sqrt(var[k] / (ns[k] - 1))), int(sizes[k])
     usable = [k for k in range(levels) if ns[k] >= 8]
+    if not usable:  # fewer than 8 samples: only the naive estimate exists
+        return float(np.sqrt(var[0] / (ns[0] - 1))), 1
     errs = np.sqrt(var[usable] / (ns[usable] - 1))
     k = usable[int(np.argmax(errs))]
     return float(errs[usable.index(k)]), int(sizes[k])
