@@ -486,13 +486,15 @@ _Z_SERIES = ("pressure_wall", "pressure_virial", "temperature")
 def z_stderr(settings: Settings, pressure_wall: np.ndarray, pressure_virial: np.ndarray,
              temperature: np.ndarray) -> float:
     """Block-averaging stderr of Z = <P>/(ρ<T>) from production samples, computed as
-    mdgas.analysis.summary does: wall pressure over the walled faces, else the virial."""
-    from .analysis.statistics import estimate, ratio
+    mdgas.analysis.summary does (wall pressure averaged over the walled faces, else the
+    virial; the ratio's error keeps the P-T correlation). Unlike the summary it does
+    not drop an automatically detected equilibration stretch."""
+    from .analysis.statistics import ratio_series
     if len(temperature) < 4:
         return math.inf
     faces = [k for k in range(6) if settings.walled[k // 2]]
     p = pressure_wall[:, faces].mean(axis=1) if faces else pressure_virial
-    z = ratio(estimate(p), estimate(temperature), 1.0 / settings.gas.density)
+    z = ratio_series(p, temperature, 1.0 / settings.gas.density)
     return z.stderr if math.isfinite(z.stderr) else math.inf
 
 

@@ -334,3 +334,21 @@ def test_preflight_refuses_a_run_that_cannot_fit_on_the_disk(tmp_path):
     with pytest.raises(mdgas.errors.UserError, match="MB are free.*frame_every = 0"):
         driver.simulate(s, tmp_path / "huge.h5", progress=False)
     assert not (tmp_path / "huge.h5").exists()  # refused before anything was written
+
+
+def test_resume_refuses_a_run_that_is_still_going(tmp_path, ideal):
+    cfg, _, _ = ideal
+    out = tmp_path / "busy.h5"
+    proc = start("run", str(cfg), "-o", str(out), "-q")
+    try:
+        wait_for_checkpoint(out, proc)
+        r = cli("resume", str(out), "-q")
+        still_going = proc.poll() is None
+    finally:
+        proc.send_signal(signal.SIGINT)
+        proc.communicate(timeout=60)
+    if not still_going:
+        pytest.skip("the run finished before the resume attempt (machine too fast)")
+    assert r.returncode == 2, r.stderr
+    assert "Traceback" not in r.stderr
+    assert "still going" in r.stderr or "another process is writing" in r.stderr
