@@ -73,14 +73,17 @@ def test_list_forces_equal_brute_force(mode, walls):
 def test_list_is_complete_and_exact():
     """Every pair within r_list is in the list, none beyond it (several cell layouts)."""
     rng = np.random.default_rng(7)
-    for box, walled in [((7.0, 7.0, 7.0), (False,) * 3), ((12.0, 9.5, 6.7), (False, False, True)),
-                        ((15.0, 15.0, 15.0), (True, False, False))]:
+    for box, walled, reach in [((7.0, 7.0, 7.0), (False,) * 3, 1),
+                               ((7.0, 7.0, 7.0), (False,) * 3, 2),   # < 5 cells: all once
+                               ((12.0, 9.5, 6.7), (False, False, True), 2),
+                               ((15.0, 15.0, 15.0), (True, False, False), 2),
+                               ((15.0, 15.0, 15.0), (True, False, False), 1)]:
         box = np.array(box)
         n = 500
         pos = rng.random((n, 3)) * box
         rlist = 3.3
         lp, ilp = image_arrays(box, walled)
-        nc, inv = cell_grid(box, rlist)
+        nc, inv = cell_grid(box, rlist, reach)
         cell_start = np.zeros(int(np.prod(nc)) + 1, np.int64)
         order = np.zeros(n, np.int64)
         sort_by_cell(pos, inv, nc, cell_start, order, np.zeros(n, np.int64))
@@ -93,12 +96,12 @@ def test_list_is_complete_and_exact():
             nbr = np.zeros((n, 4), np.int32)     # too small on purpose: must report growth
             count = np.zeros(n, np.int32)
             widest = build_neighbour_list(pos, lp, ilp, nc, cell_start, rlist ** 2, half, nbr,
-                                          count)
+                                          count, reach)
             assert widest > 4
             room = int((r2 < rlist ** 2).sum(axis=1).max()) if half else widest
             nbr = np.zeros((n, room), np.int32)
             assert build_neighbour_list(pos, lp, ilp, nc, cell_start, rlist ** 2, half, nbr,
-                                        count) == widest
+                                        count, reach) == widest
             for i in range(n):
                 want = set(np.nonzero(r2[i] < rlist ** 2)[0])
                 if half:
@@ -172,23 +175,33 @@ def test_tail_corrections_match_the_integrals():
     assert p_tail == pytest.approx(p_int, rel=1e-10)
 
 
-def test_resume_is_bit_exact():
+@pytest.mark.parametrize("producing", [False, True])
+def test_resume_is_bit_exact(producing):
     """Two chunks in one go equal one chunk, a deep copy of the state, a fresh engine and
-    a second chunk (thermostat and thermal walls draw random numbers; one thread)."""
+    a second chunk; equilibration runs CSVR and thermal walls (random numbers), plain NVE
+    production fuses half-kicks across steps (one thread)."""
     s = lj_settings(container__walls="x", container__wall="thermal",
                     container__wall_temperature=1.3, gas__particles=300,
                     potential__neighbour_list="half")
     e1 = LJ(s)
     a = e1.initial_state()
     acc = new_accumulator()
-    e1.advance(a, 0.5, acc, False)
+    e1.advance(a, 0.5, acc, producing)
     b = copy.deepcopy(a)
-    e1.advance(a, 0.5, acc, False)
+    e1.advance(a, 0.5, acc, producing)
     e2 = LJ(s)
-    e2.advance(b, 0.5, new_accumulator(), False)
+    e2.advance(b, 0.5, new_accumulator(), producing)
     for key in a:
         np.testing.assert_array_equal(a[key], b[key], err_msg=key)
-    assert acc[20] > 0 and acc[17] != 0.0    # lists were rebuilt, the thermostat worked
+    assert acc[20] > 0 and (acc[17] != 0.0) == (not producing)   # rebuilt; thermostat
+    # One chunk of 200 steps equals two of 100 (chunk boundaries change nothing).
+    c = e1.initial_state()
+    d = copy.deepcopy(c)
+    e1.advance(c, 1.0, new_accumulator(), producing)
+    e1.advance(d, 0.5, new_accumulator(), producing)
+    e1.advance(d, 0.5, new_accumulator(), producing)
+    for key in c:
+        np.testing.assert_array_equal(c[key], d[key], err_msg=key)
 
 
 def test_momentum_conserved_in_a_periodic_box():

@@ -77,7 +77,7 @@ OK, BLOWUP, ESCAPED = 0, 1, 2
 _DT, _RC2, _USHIFT, _RLIST2, _SKIN, _WEPS, _WSIG, _WCUT, _WSHIFT, _WTEMP, _KTARGET, \
     _CTHERMO, _KLIMIT = range(13)
 # ipar slots
-_WKIND, _THERMO, _HALF, _NDOF = range(4)
+_WKIND, _THERMO, _HALF, _NDOF, _REACH = range(5)
 
 
 # -- forces ---------------------------------------------------------------------------
@@ -145,6 +145,8 @@ def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, force, fbuf):
     """
     n = pos.shape[0]
     nb = fbuf.shape[0]
+    if nb == 1:   # one thread: straight into ``force``, no buffer pass, no parallel region
+        return _half_serial(pos, nbr, count, lp, ilp, rc2, ushift, force)
     lx, ly, lz = lp[0], lp[1], lp[2]
     ix, iy, iz = ilp[0], ilp[1], ilp[2]
     parts = np.zeros((nb, 4))
@@ -209,6 +211,54 @@ def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, force, fbuf):
         for s in range(4):
             tot[s] += parts[t, s]
     return tot[0], tot[1], tot[2], tot[3]
+
+
+@njit(cache=True, fastmath=FAST, error_model="numpy")
+def _half_serial(pos, nbr, count, lp, ilp, rc2, ushift, force):
+    """:func:`pair_forces_half` on one thread, accumulating into ``force`` directly."""
+    n = pos.shape[0]
+    lx, ly, lz = lp[0], lp[1], lp[2]
+    ix, iy, iz = ilp[0], ilp[1], ilp[2]
+    for i in range(n):
+        force[i, 0] = 0.0
+        force[i, 1] = 0.0
+        force[i, 2] = 0.0
+    u = 0.0
+    wx = 0.0
+    wy = 0.0
+    wz = 0.0
+    for i in range(n):
+        xi, yi, zi = pos[i, 0], pos[i, 1], pos[i, 2]
+        fx = 0.0
+        fy = 0.0
+        fz = 0.0
+        for k in range(count[i]):
+            j = nbr[i, k]
+            dx = xi - pos[j, 0]
+            dy = yi - pos[j, 1]
+            dz = zi - pos[j, 2]
+            dx -= lx * np.rint(dx * ix)
+            dy -= ly * np.rint(dy * iy)
+            dz -= lz * np.rint(dz * iz)
+            r2 = dx * dx + dy * dy + dz * dz
+            if r2 < rc2:
+                ir2 = 1.0 / r2
+                ir6 = ir2 * ir2 * ir2
+                ff = 48.0 * ir6 * (ir6 - 0.5) * ir2
+                u += 4.0 * ir6 * (ir6 - 1.0) - ushift
+                fx += ff * dx
+                fy += ff * dy
+                fz += ff * dz
+                force[j, 0] -= ff * dx
+                force[j, 1] -= ff * dy
+                force[j, 2] -= ff * dz
+                wx += ff * dx * dx
+                wy += ff * dy * dy
+                wz += ff * dz * dz
+        force[i, 0] += fx
+        force[i, 1] += fy
+        force[i, 2] += fz
+    return u, wx, wy, wz
 
 
 @njit(cache=True, error_model="numpy")
@@ -286,7 +336,7 @@ def csvr_factor(ke, target, ndof, c, rng):
 
 @njit(cache=True, error_model="numpy")
 def _rebuild(x, v, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3, itmp,
-             lp, ilp, ncell, inv_width, rlist2, half):
+             lp, ilp, ncell, inv_width, rlist2, half, reach):
     """Sort particles by cell (x, v and the slot ids move together) and rebuild the list;
     grows ``nbr`` when a row does not fit. Returns the (possibly new) ``nbr``."""
     n = x.shape[0]
@@ -299,7 +349,8 @@ def _rebuild(x, v, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3, itm
         ids[k] = itmp[k]
     while True:
         # Always a half build (each distance once); a full list is its mirror image.
-        widest = build_neighbour_list(x, lp, ilp, ncell, cell_start, rlist2, True, nbr, count)
+        widest = build_neighbour_list(x, lp, ilp, ncell, cell_start, rlist2, True, nbr, count,
+                                      reach)
         if widest <= nbr.shape[1] and not half:
             widest = mirror_half_list(nbr, count, cell_tmp)
         if widest <= nbr.shape[1]:
@@ -331,13 +382,69 @@ def prepare(x, v, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3, itmp
             box, lp, ilp, walled, ncell, inv_width, fpar, ipar):
     """Sort, build the list and compute forces for a fresh state; returns ``nbr``."""
     nbr = _rebuild(x, v, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3, itmp,
-                   lp, ilp, ncell, inv_width, fpar[_RLIST2], ipar[_HALF] == 1)
+                   lp, ilp, ncell, inv_width, fpar[_RLIST2], ipar[_HALF] == 1, ipar[_REACH])
     fwall = np.zeros(6)
     _forces(x, nbr, count, box, lp, ilp, walled, fpar, ipar, f, fbuf, fwall)
     return nbr
 
 
+@njit(cache=True, inline="always")
+def _wrap(x, i, a, L):
+    """Back into [0, L) on a periodic axis (a particle moves far less than L per step)."""
+    if x[i, a] < 0.0:
+        x[i, a] += L
+    elif x[i, a] >= L:
+        x[i, a] -= L
+    if x[i, a] >= L or x[i, a] < 0.0:
+        x[i, a] -= L * math.floor(x[i, a] / L)
+        if x[i, a] >= L:
+            x[i, a] = 0.0
+
+
 @njit(cache=True, parallel=True, error_model="numpy")
+def _kick_drift(x, v, f, box, walled, dt, hdt):
+    """First half of a velocity-Verlet step: v += f dt/2, x += v dt (wrapped)."""
+    for i in prange(x.shape[0]):
+        for a in range(3):
+            v[i, a] += hdt * f[i, a]
+            x[i, a] += dt * v[i, a]
+            if not walled[a]:
+                _wrap(x, i, a, box[a])
+
+
+@njit(cache=True, parallel=True, error_model="numpy")
+def _kick(v, f, hdt):
+    """Second half-kick; returns Σ v² after it."""
+    ke2 = 0.0
+    for i in prange(v.shape[0]):
+        s = 0.0
+        for a in range(3):
+            v[i, a] += hdt * f[i, a]
+            s += v[i, a] * v[i, a]
+        ke2 += s
+    return ke2
+
+
+@njit(cache=True, parallel=True, error_model="numpy")
+def _kick_kick_drift(x, v, f, box, walled, dt, hdt):
+    """The second half-kick of one step fused with the first half of the next, in one
+    pass (same arithmetic as :func:`_kick` then :func:`_kick_drift`); returns Σ v² at
+    the end of the step."""
+    ke2 = 0.0
+    for i in prange(x.shape[0]):
+        s = 0.0
+        for a in range(3):
+            vh = v[i, a] + hdt * f[i, a]
+            s += vh * vh
+            v[i, a] = vh + hdt * f[i, a]
+            x[i, a] += dt * v[i, a]
+            if not walled[a]:
+                _wrap(x, i, a, box[a])
+        ke2 += s
+    return ke2
+
+
+@njit(cache=True, error_model="numpy")
 def verlet_chunk(nsteps, x, v, f, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3,
                  itmp, fbuf, box, lp, ilp, walled, ncell, inv_width, fpar, ipar, acc, rng,
                  status):
@@ -358,18 +465,9 @@ def verlet_chunk(nsteps, x, v, f, ids, xref, nbr, count, cell_start, order, cell
     half = ipar[_HALF] == 1
     fwall = np.zeros(6)
     done = 0
+    thermo = ipar[_THERMO] == 1
+    _kick_drift(x, v, f, box, walled, dt, hdt)
     for step in range(nsteps):
-        for i in prange(n):
-            for a in range(3):
-                v[i, a] += hdt * f[i, a]
-                x[i, a] += dt * v[i, a]
-                if not walled[a]:
-                    if x[i, a] < 0.0:
-                        x[i, a] += box[a]
-                    elif x[i, a] >= box[a]:
-                        x[i, a] -= box[a]
-                        if x[i, a] >= box[a] or x[i, a] < 0.0:
-                            x[i, a] -= box[a] * math.floor(x[i, a] / box[a])
         if any_wall:
             bad = -1
             for i in range(n):
@@ -392,23 +490,20 @@ def verlet_chunk(nsteps, x, v, f, ids, xref, nbr, count, cell_start, order, cell
                 return done, nbr
         if max_displacement_pair(x, xref, lp, ilp) > fpar[_SKIN]:
             nbr = _rebuild(x, v, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3,
-                           itmp, lp, ilp, ncell, inv_width, fpar[_RLIST2], half)
+                           itmp, lp, ilp, ncell, inv_width, fpar[_RLIST2], half, ipar[_REACH])
             acc[REBUILDS] += 1.0
         u, wx, wy, wz, uw = _forces(x, nbr, count, box, lp, ilp, walled, fpar, ipar, f, fbuf,
                                     fwall)
-        ke2 = 0.0
-        for i in prange(n):
-            s = 0.0
-            for a in range(3):
-                v[i, a] += hdt * f[i, a]
-                s += v[i, a] * v[i, a]
-            ke2 += s
-        ke = 0.5 * ke2
-        if ipar[_THERMO]:
+        last = step == nsteps - 1
+        # Plain NVE fuses this step's last half-kick with the next step's first half;
+        # the thermostat needs the end-of-step kinetic energy first, so it cannot.
+        if thermo or last:
+            ke = 0.5 * _kick(v, f, hdt)
+        else:
+            ke = 0.5 * _kick_kick_drift(x, v, f, box, walled, dt, hdt)
+        if thermo:
             alpha = csvr_factor(ke, fpar[_KTARGET], ipar[_NDOF], fpar[_CTHERMO], rng)
-            for i in prange(n):
-                for a in range(3):
-                    v[i, a] *= alpha
+            _scale(v, alpha)
             acc[THERMOSTAT] += (alpha * alpha - 1.0) * ke
             ke *= alpha * alpha
         acc[POTENTIAL] += u * dt
@@ -426,7 +521,16 @@ def verlet_chunk(nsteps, x, v, f, ids, xref, nbr, count, cell_start, order, cell
             status[0] = BLOWUP
             status[1] = step
             return done, nbr
+        if thermo and not last:
+            _kick_drift(x, v, f, box, walled, dt, hdt)
     return done, nbr
+
+
+@njit(cache=True, parallel=True, error_model="numpy")
+def _scale(v, alpha):
+    for i in prange(v.shape[0]):
+        for a in range(3):
+            v[i, a] *= alpha
 
 
 # -- the engine -----------------------------------------------------------------------
@@ -529,7 +633,10 @@ class LennardJones(Engine):
         mode = getattr(p, "neighbour_list", "auto")
         self.half = (s.gas.density < FULL_LIST_DENSITY) if mode == "auto" else mode == "half"
         self.lp, self.ilp = image_arrays(self.box, s.walled)
-        self.ncell, self.inv_width = cell_grid(self.box, self.rlist)
+        # Finer cells (reach 2) scan less volume per particle; they pay where cells are
+        # well filled, i.e. for the dense states that use the full list.
+        self.reach = 1 if self.half else 2
+        self.ncell, self.inv_width = cell_grid(self.box, self.rlist, self.reach)
         self.kind = WALL_CODES[c.wall] if c.walls != "none" else WALL_CODES["specular"]
         wall_shift = lj93_potential(c.wall_cutoff, c.wall_epsilon, c.wall_sigma, 0.0)
         self.ndof = kinetic_dof(s)
@@ -541,7 +648,8 @@ class LennardJones(Engine):
         self.fpar[_KTARGET] = 0.5 * self.ndof * s.gas.temperature
         self.fpar[_CTHERMO] = math.exp(-sch.timestep / sch.thermostat_time)
         self.fpar[_KLIMIT] = BLOWUP_FACTOR * 1.5 * self.n * _hottest(s)
-        self.ipar = np.array([self.kind, 0, int(self.half), self.ndof], dtype=np.int64)
+        self.ipar = np.array([self.kind, 0, int(self.half), self.ndof, self.reach],
+                             dtype=np.int64)
         self._scratch: dict[str, np.ndarray] = {}
 
     # -- scratch arrays (not state: rebuilt freely) ---------------------------------
