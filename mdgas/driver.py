@@ -90,7 +90,7 @@ def resume(path: str | Path, *, progress: bool | None = None) -> Path:
             and _alive(int(meta.get("writer_pid", 0))):
         raise UserError(f"{p}: the run is still going (process {meta['writer_pid']}); "
                         "wait for it or stop it first")
-    ckpt = read_checkpoint(p)
+    ckpt = read_checkpoint(p, max_samples=len(raw["times"]))
     if ckpt is None:
         raise RunFileError(f"{p}: the run file holds no checkpoint (it stopped before "
                            "the first one); run the config again with --force")
@@ -99,7 +99,8 @@ def resume(path: str | Path, *, progress: bool | None = None) -> Path:
     writer = RunWriter.reopen(p)
     try:
         c = ckpt["counters"]
-        if writer.n_samples < int(c["n_samples"]) or writer.n_frames < int(c["n_frames"]):
+        if min(writer.n_samples, len(raw["times"])) < int(c["n_samples"]) or \
+                min(writer.n_frames, raw["n_frames"]) < int(c["n_frames"]):
             raise RunFileError(f"{p}: the run file has fewer samples than its checkpoint "
                                "says (damaged); run the config again with --force")
         writer.truncate(int(c["n_samples"]), int(c["n_frames"]))

@@ -140,6 +140,11 @@ def _guard(method):
     return wrapper
 
 
+def _is_failed_write(exc: BaseException | None) -> bool:
+    """An HDF5 error raised while freeing an object after a write failed."""
+    return isinstance(exc, (RuntimeError, OSError)) and "write failed" in str(exc)
+
+
 def _quiet_failed_writes() -> None:
     """After a failed write, every h5py object freed makes HDF5 retry the write and h5py
     print the failure as an ignored exception; the one error message says it all."""
@@ -149,7 +154,7 @@ def _quiet_failed_writes() -> None:
         return
 
     def hook(info):
-        if isinstance(info.exc_value, RuntimeError) and "write failed" in str(info.exc_value):
+        if _is_failed_write(info.exc_value):
             return
         previous(info)
     hook._mdgas = True  # type: ignore[attr-defined]
@@ -158,7 +163,7 @@ def _quiet_failed_writes() -> None:
     previous_except = sys.excepthook
 
     def except_hook(kind, value, tb):
-        if isinstance(value, RuntimeError) and "write failed" in str(value):
+        if _is_failed_write(value):
             return
         previous_except(kind, value, tb)
     sys.excepthook = except_hook
@@ -575,18 +580,21 @@ def _read_prefix(ds: h5py.Dataset, valid_size: int | None) -> tuple[np.ndarray, 
         except (OSError, RuntimeError, ValueError) as exc:
             return np.zeros((0,) + ds.shape[1:], dtype=ds.dtype), f"unreadable ({exc})"
     step = ds.chunks[0]
+    # Where each chunk's bytes end. A chunk missing from the index was never written
+    # (HDF5 would read it as fill-value zeros); one ending past the file end was cut off.
     ends = {}
-    if valid_size is not None:
-        for ci in range(ds.id.get_num_chunks()):
-            info = ds.id.get_chunk_info(ci)
-            ends[info.chunk_offset[0]] = max(ends.get(info.chunk_offset[0], 0),
-                                             info.byte_offset + info.size)
+    for ci in range(ds.id.get_num_chunks()):
+        info = ds.id.get_chunk_info(ci)
+        ends[info.chunk_offset[0]] = max(ends.get(info.chunk_offset[0], 0),
+                                         info.byte_offset + info.size)
     parts, stop = [], 0
     note = ""
     while stop < n:
         hi = min(n, stop + step)
         try:
-            if ends.get(stop, 0) > valid_size if valid_size is not None else False:
+            if stop not in ends:
+                raise OSError("never written")
+            if valid_size is not None and ends[stop] > valid_size:
                 raise OSError("past the end of the file")
             parts.append(ds[stop:hi])
         except (OSError, RuntimeError, ValueError) as exc:
@@ -597,6 +605,20 @@ def _read_prefix(ds: h5py.Dataset, valid_size: int | None) -> tuple[np.ndarray, 
     return data, note
 
 
+def _intact_rows(ds: h5py.Dataset, valid_size: int | None) -> int:
+    """Leading rows of a chunked dataset whose chunks were written and lie in the file."""
+    ends = {}
+    for ci in range(ds.id.get_num_chunks()):
+        info = ds.id.get_chunk_info(ci)
+        ends[info.chunk_offset[0]] = max(ends.get(info.chunk_offset[0], 0),
+                                         info.byte_offset + info.size)
+    rows, step = 0, ds.chunks[0]
+    while rows < ds.shape[0] and rows in ends and \
+            (valid_size is None or ends[rows] <= valid_size):
+        rows += step
+    return min(rows, ds.shape[0])
+
+
 def read_run(path: str | os.PathLike) -> dict[str, Any]:
     """Everything but the frames, as plain Python and NumPy objects.
 
@@ -605,7 +627,10 @@ def read_run(path: str | os.PathLike) -> dict[str, Any]:
     """
     f, damage, tmp = _open_salvage(path)
     try:
-        out = _read_open(f, damage, getattr(f, "_mdgas_valid_size", None), Path(path))
+        # Every chunk is checked against the real end of the file: after a failed write
+        # HDF5 may index a chunk that never reached the disk, and it reads as zeros.
+        valid = getattr(f, "_mdgas_valid_size", None) or Path(path).stat().st_size
+        out = _read_open(f, damage, valid, Path(path))
     finally:
         f.close()
         if tmp is not None:
@@ -682,7 +707,9 @@ def _read_open(f: h5py.File, damage: list[str], valid: int | None,
     try:
         if f"{GROUP}/position/time" in f and f"{GROUP}/velocity/time" in f:
             n_frames = min(f[f"{GROUP}/position/time"].shape[0],
-                           f[f"{GROUP}/velocity/time"].shape[0])
+                           f[f"{GROUP}/velocity/time"].shape[0],
+                           _intact_rows(f[f"{GROUP}/position/value"], valid),
+                           _intact_rows(f[f"{GROUP}/velocity/value"], valid))
     except (OSError, RuntimeError, KeyError) as exc:
         damage.append(f"the trajectory frames are unreadable ({_first_line(exc)})")
     final = {}
@@ -709,8 +736,13 @@ def _read_open(f: h5py.File, damage: list[str], valid: int | None,
             "histograms": hist, "n_frames": n_frames, "final": final, "damage": list(damage)}
 
 
-def read_checkpoint(path: str | os.PathLike) -> dict[str, Any] | None:
-    """The latest valid checkpoint: {"state", "histograms", "counters", "seq"}, or None."""
+def read_checkpoint(path: str | os.PathLike, max_samples: int | None = None
+                    ) -> dict[str, Any] | None:
+    """The latest valid checkpoint: {"state", "histograms", "counters", "seq"}, or None.
+
+    ``max_samples``: skip a checkpoint that counts more samples than the file holds
+    intact (a write that failed after it can cost samples it had counted).
+    """
     with open_run_file(path) as f:
         root = f.get(CHECKPOINT)
         if root is None:
@@ -730,8 +762,10 @@ def read_checkpoint(path: str | os.PathLike) -> dict[str, Any] | None:
                         if note:
                             raise OSError(note)
                         arrays[part][k] = data
-                return {**arrays, "seq": seq, "slot": name,
-                        "counters": {k: _plain(v) for k, v in slot["counters"].attrs.items()}}
+                counters = {k: _plain(v) for k, v in slot["counters"].attrs.items()}
+                if max_samples is not None and int(counters["n_samples"]) > max_samples:
+                    continue
+                return {**arrays, "seq": seq, "slot": name, "counters": counters}
             except (KeyError, OSError, RuntimeError):
                 continue  # this slot is damaged: fall back to the other one
     return None
