@@ -169,6 +169,19 @@ def _quiet_failed_writes() -> None:
     sys.excepthook = except_hook
 
 
+def _refuse_if_in_use(path: Path) -> None:
+    try:
+        h5py.File(path, "r+").close()
+    except BlockingIOError:
+        raise UserError(f"{path}: another process is writing this run file; "
+                        "wait for it to finish or stop it first") from None
+    except OSError as exc:
+        if "lock" in str(exc).lower():
+            raise UserError(f"{path}: another process is writing this run file; "
+                            "wait for it to finish or stop it first") from None
+        # Not an HDF5 file we can open: nobody is writing it as a run.
+
+
 class RunWriter:
     """Creates a run file (or reopens one to resume) and appends to it as the run goes on.
 
@@ -192,6 +205,11 @@ class RunWriter:
                             "use --force to overwrite it or -o to choose another path")
         if self.path.is_dir():
             raise UserError(f"{self.path}: is a folder; give a file name ending in .h5")
+        if self.path.exists():
+            # HDF5 truncates a file before it checks the lock, so creating over a run
+            # that another process is writing would destroy it: probe the lock first.
+            _refuse_if_in_use(self.path)
+            self.path.unlink()
         try:
             self.path.parent.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
