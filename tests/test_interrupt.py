@@ -339,7 +339,8 @@ def test_preflight_refuses_a_run_that_cannot_fit_on_the_disk(tmp_path):
 def test_resume_and_force_refuse_a_run_that_is_still_going(tmp_path, ideal):
     cfg, _, _ = ideal
     out = tmp_path / "busy.h5"
-    proc = start("run", str(cfg), "-o", str(out), "-q")
+    # Long enough to outlast the two attempts; it is stopped by SIGINT below anyway.
+    proc = start("run", str(cfg), "-o", str(out), "-q", "--set", "schedule.produce=50000.0")
     try:
         wait_for_checkpoint(out, proc)
         resumed = cli("resume", str(out), "-q")
