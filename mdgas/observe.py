@@ -105,6 +105,20 @@ def _speeds(vel):
     return out
 
 
+@njit(cache=True, inline="always")
+def _count_pair(pos, i, j, box, r2max, scale, counts):
+    """Add the pair (i, j) twice (ordered counts) to its minimum-image distance bin."""
+    r2 = 0.0
+    for a in range(3):
+        d = pos[i, a] - pos[j, a]
+        d -= box[a] * np.rint(d / box[a])
+        r2 += d * d
+    if r2 < r2max:
+        k = int(math.sqrt(r2) * scale)
+        if k < counts.shape[0]:
+            counts[k] += 2.0
+
+
 @njit(cache=True)
 def pair_distance_counts(pos, box, rmax, counts):
     """Add ordered pair counts (i != j, minimum image on every axis) by distance.
@@ -122,15 +136,7 @@ def pair_distance_counts(pos, box, rmax, counts):
     if nc[0] < 3 or nc[1] < 3 or nc[2] < 3:
         for i in range(n):
             for j in range(i + 1, n):
-                r2 = 0.0
-                for a in range(3):
-                    d = pos[i, a] - pos[j, a]
-                    d -= box[a] * np.rint(d / box[a])
-                    r2 += d * d
-                if r2 < r2max:
-                    k = int(math.sqrt(r2) * scale)
-                    if k < nb:
-                        counts[k] += 2.0
+                _count_pair(pos, i, j, box, r2max, scale, counts)
         return
     ncell = nc[0] * nc[1] * nc[2]
     head = -np.ones(ncell, dtype=np.int64)
@@ -157,15 +163,7 @@ def pair_distance_counts(pos, box, rmax, counts):
                         # With at least 3 cells per axis each neighbour cell is visited
                         # once, so j > i counts every pair once (added twice below).
                         if j > i:
-                            r2 = 0.0
-                            for a in range(3):
-                                d = pos[i, a] - pos[j, a]
-                                d -= box[a] * np.rint(d / box[a])
-                                r2 += d * d
-                            if r2 < r2max:
-                                k = int(math.sqrt(r2) * scale)
-                                if k < nb:
-                                    counts[k] += 2.0
+                            _count_pair(pos, i, j, box, r2max, scale, counts)
                         j = nxt[j]
 
 
