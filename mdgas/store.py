@@ -637,6 +637,28 @@ def _intact_rows(ds: h5py.Dataset, valid_size: int | None) -> int:
     return min(rows, ds.shape[0])
 
 
+def _read_group_verified(f, group: str, valid, damage: list[str], whole: bool) -> dict:
+    """Every intact dataset of ``group`` (checksums verified); damage is noted.
+
+    ``whole``: one damaged member discards the group (a state is only usable entire).
+    """
+    out: dict = {}
+    try:
+        if group in f:
+            for k, v in f[group].items():
+                data, note = _read_verified(v, valid)
+                if note:
+                    damage.append(f"{group}/{k}: {note}")
+                    if whole:
+                        return {}
+                    continue
+                out[k] = data
+    except (OSError, RuntimeError, KeyError) as exc:
+        damage.append(f"{group} is unreadable ({_first_line(exc)})")
+        return {}
+    return out
+
+
 def read_run(path: str | os.PathLike) -> dict[str, Any]:
     """Everything but the frames, as plain Python and NumPy objects.
 
@@ -709,18 +731,7 @@ def _read_open(f: h5py.File, damage: list[str], valid: int | None,
     lost = [name for name in OBSERVABLE_UNITS if name not in obs]
     if lost and obs:
         damage.append(f"time series lost: {', '.join(lost)}")
-    hist = {}
-    try:
-        if "observables/histograms" in f:
-            for k, v in f["observables/histograms"].items():
-                data, note = _read_verified(v, valid)
-                if note:
-                    damage.append(f"observables/histograms/{k}: {note}")
-                else:
-                    hist[k] = data
-    except (OSError, RuntimeError, KeyError) as exc:
-        hist = {}
-        damage.append(f"observables/histograms is unreadable ({_first_line(exc)})")
+    hist = _read_group_verified(f, "observables/histograms", valid, damage, whole=False)
     n_frames = 0
     try:
         if f"{GROUP}/position/time" in f and f"{GROUP}/velocity/time" in f:
@@ -730,19 +741,7 @@ def _read_open(f: h5py.File, damage: list[str], valid: int | None,
                            _intact_rows(f[f"{GROUP}/velocity/value"], valid))
     except (OSError, RuntimeError, KeyError) as exc:
         damage.append(f"the trajectory frames are unreadable ({_first_line(exc)})")
-    final = {}
-    try:
-        if "mdgas/final" in f:
-            for k, v in f["mdgas/final"].items():
-                data, note = _read_verified(v, valid)
-                if note:
-                    damage.append(f"mdgas/final/{k}: {note}")
-                    final = {}
-                    break
-                final[k] = data
-    except (OSError, RuntimeError, KeyError) as exc:
-        final = {}
-        damage.append(f"mdgas/final is unreadable ({_first_line(exc)})")
+    final = _read_group_verified(f, "mdgas/final", valid, damage, whole=True)
     status = _plain(meta.get("status", ""))
     if status == STATUS_COMPLETE and not final:
         damage.append("the final state (mdgas/final) is missing")
