@@ -228,32 +228,6 @@ def build_neighbour_list(pos, lp, ilp, ncell, cell_start, rlist2, half, nbr, cou
     return widest
 
 
-@njit(cache=True, error_model="numpy")
-def max_displacement_pair(pos, ref, lp, ilp):
-    """Sum of the two largest displacements since ``ref`` (σ), minimum-imaged.
-
-    The list stays valid while this is below the skin: no pair can then have closed
-    in by more than the skin since the build.
-    """
-    d1 = 0.0
-    d2 = 0.0
-    for i in range(pos.shape[0]):
-        dx = pos[i, 0] - ref[i, 0]
-        dy = pos[i, 1] - ref[i, 1]
-        dz = pos[i, 2] - ref[i, 2]
-        dx -= lp[0] * np.rint(dx * ilp[0])
-        dy -= lp[1] * np.rint(dy * ilp[1])
-        dz -= lp[2] * np.rint(dz * ilp[2])
-        s = dx * dx + dy * dy + dz * dz
-        if s > d2:
-            if s > d1:
-                d2 = d1
-                d1 = s
-            else:
-                d2 = s
-    return math.sqrt(d1) + math.sqrt(d2)
-
-
 def list_capacity(density: float, rlist: float, half: bool) -> int:
     """A starting row capacity: the mean full-list row plus generous room for
     fluctuations (rows grow automatically when a build finds more)."""
