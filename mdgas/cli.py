@@ -87,6 +87,7 @@ def cmd_resume(args) -> int:
 
 def derived_figures(settings) -> dict[str, Any]:
     """Figures a practitioner wants before spending CPU time (reduced units)."""
+    from .driver import time_estimate
     from .engines import get_engine
     s = settings
     box = s.box
@@ -95,7 +96,6 @@ def derived_figures(settings) -> dict[str, Any]:
     walled_area = sum(2 * box[(a + 1) % 3] * box[(a + 2) % 3] for a in range(3) if s.walled[a])
     mfp = 1.0 / (math.sqrt(2.0) * math.pi * rho)  # diameter σ = 1
     engine = get_engine(s.gas.model)(s)
-    total = s.schedule.equilibrate + s.schedule.produce
     return {
         "box_edges": [float(x) for x in box],
         "volume": s.volume,
@@ -104,9 +104,7 @@ def derived_figures(settings) -> dict[str, Any]:
         "knudsen_number": mfp / float(min(box)),
         "wall_hits_per_time": 0.25 * rho * mean_speed * walled_area,
         "samples": int(round(s.schedule.produce / s.output.sample_every)),
-        # Engine work plus the driver's per-chunk bookkeeping (about 0.3 ms a sample).
-        "estimated_seconds": engine.cost_per_time() * total
-        + 3e-4 * total / s.output.sample_every,
+        "estimated_seconds": time_estimate(s, engine),
         "estimated_memory_mb": _memory_estimate(s, engine) / 2 ** 20,
     }
 

@@ -218,6 +218,23 @@ def memory_estimate(settings: Settings, engine=None) -> int:
     return int(230 * 2 ** 20 + engine.memory_bytes() + 96 * n)
 
 
+def time_estimate(settings: Settings, engine=None) -> float:
+    """Rough wall-clock seconds for the whole run: start-up, the engine's chunks, and the
+    driver's per-sample (snapshot histograms, sample rows) and per-frame (compression)
+    work, with coefficients measured on the 2-core development machine."""
+    if engine is None:
+        engine = get_engine(settings.gas.model)(settings)
+    sch, out = settings.schedule, settings.output
+    produce = (sch.max_produce or DEFAULT_MAX_FACTOR * sch.produce) if sch.target_stderr \
+        else sch.produce
+    total = sch.equilibrate + produce
+    n = settings.gas.particles
+    samples = total / out.sample_every
+    frames = (produce / out.frame_every + 1) if out.frame_every > 0 else 0
+    return 0.2 + engine.cost_per_time() * total + samples * (1e-3 + 1e-7 * n) \
+        + frames * 1.2e-6 * n
+
+
 def warnings_for(settings: Settings) -> list[str]:
     """Legal but unwise settings: one sentence each, with what to change."""
     s = settings
