@@ -732,7 +732,7 @@ def _save_refined(folder: Path, params: list[dict[str, Any]]) -> None:
 
 def dry_run(sweep: Sweep, folder: Path | None = None, workers: int | None = None) -> str:
     """The expanded list of runs, which exist already, and the estimated cost."""
-    from .engines import get_engine
+    from .driver import time_estimate
     folder = Path(folder or default_folder(sweep))
     points = sweep.expand(refined_params(folder))
     keys = sweep.varied_keys
@@ -746,9 +746,7 @@ def dry_run(sweep: Sweep, folder: Path | None = None, workers: int | None = None
             body.append([str(i + 1), *vals, str(pt.replica), str(pt.seed), "-",
                          f"invalid: {pt.error}"])
             continue
-        sch = pt.settings.schedule
-        est = get_engine(pt.settings.gas.model)(pt.settings).cost_per_time() * (
-            sch.equilibrate + (sch.max_produce or sch.produce))
+        est = time_estimate(pt.settings)
         have = (folder / pt.filename).is_file()
         total += est
         todo += 0.0 if have else est
@@ -760,7 +758,8 @@ def dry_run(sweep: Sweep, folder: Path | None = None, workers: int | None = None
     w = LocalExecutor(workers).workers
     lines.append(f"estimated cost: {total:.3g} s of CPU in total; {todo:.3g} s still to run, "
                  f"about {todo / max(1, min(w, len(points))):.3g} s wall time on {w} worker(s)")
-    lines.append("(estimates from each engine's cost model; files that exist are checked "
+    lines.append("(estimates from each engine's cost model and the driver's overheads; files "
+                 "that exist are checked "
                  "for completeness when the sweep runs)")
     return "\n".join(lines)
 
