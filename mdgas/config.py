@@ -75,7 +75,10 @@ class Container:
 @dataclass(frozen=True)
 class Potential:
     cutoff: float = _opt(3.0, "Lennard-Jones cut-off radius r_c (σ)", positive=True, kind=float)
-    tail: str = _opt("corrected", "tail treatment beyond r_c", choices=("shifted", "corrected"))
+    tail: str = _opt("corrected", 'tail treatment beyond r_c: "shifted" (truncated and shifted), '
+                     '"corrected" (truncated, plus uniform-fluid tail corrections), '
+                     '"shifted-force" (force and energy both zero at r_c; best energy '
+                     'conservation)', choices=("shifted", "corrected", "shifted-force"))
     skin: float = _opt(0.3, "Verlet neighbour-list skin (σ)", positive=True, kind=float)
     neighbour_list: str = _opt("auto", 'neighbour-list kind: "full" (fast for dense fluids), '
                                '"half" (fast for gases), "auto" (full above ρ = 0.3)',

@@ -47,15 +47,16 @@ def shaken(engine, seed=3, amount=0.15):
 def brute(engine, pos):
     f = np.zeros_like(pos)
     u, wx, wy, wz = pair_forces_brute(pos, engine.lp, engine.ilp, engine.fpar[1],
-                                      engine.fpar[2], f)
+                                      engine.fpar[2], engine.fpar[13], f)
     return f, u, np.array([wx, wy, wz])
 
 
 @pytest.mark.parametrize("mode", ["full", "half"])
-@pytest.mark.parametrize("walls", ["none", "z"])
-def test_list_forces_equal_brute_force(mode, walls):
+@pytest.mark.parametrize("walls,tail", [("none", "shifted"), ("z", "shifted"),
+                                        ("none", "shifted-force")])
+def test_list_forces_equal_brute_force(mode, walls, tail):
     s = lj_settings(potential__neighbour_list=mode, container__walls=walls,
-                    potential__tail="shifted", gas__particles=400)
+                    potential__tail=tail, gas__particles=400)
     e = LJ(s)
     st = shaken(e)
     acc = new_accumulator()
@@ -115,10 +116,11 @@ def test_list_is_complete_and_exact():
                     assert set(nbr[i, :count[i]]) == set(np.nonzero(r2[i] < rlist ** 2)[0])
 
 
-def test_forces_are_minus_the_energy_gradient():
+@pytest.mark.parametrize("tail", ["shifted", "shifted-force"])
+def test_forces_are_minus_the_energy_gradient(tail):
     """Central finite differences of the total energy (pairs + 9-3 walls)."""
     s = lj_settings(container__walls="z", container__wall="lj93", gas__particles=200,
-                    gas__density=0.5, potential__tail="shifted")
+                    gas__density=0.5, potential__tail=tail)
     e = LJ(s)
     st = shaken(e, amount=0.1)
     e.advance(st, e.settings.schedule.timestep, new_accumulator(), False)
@@ -173,6 +175,22 @@ def test_tail_corrections_match_the_integrals():
     p_int = -2 * np.pi / 3 * rho ** 2 * quad(lambda r: r * du(r) * r * r, rc, np.inf)[0]
     assert u_tail == pytest.approx(u_int, rel=1e-10)
     assert p_tail == pytest.approx(p_int, rel=1e-10)
+
+
+def test_shifted_force_pair_goes_smoothly_to_zero():
+    """Shifted force: u and F both vanish at r_c (and F is the derivative of u)."""
+    e = LJ(lj_settings(potential__tail="shifted-force", potential__cutoff=2.5))
+    pos = np.zeros((2, 3))
+    f = np.zeros((2, 3))
+    for r, want_u in [(2.5 - 1e-9, 0.0), (1.5, None)]:
+        pos[1, 0] = r
+        u, _, _, _ = pair_forces_brute(pos, np.zeros(3), np.zeros(3), e.fpar[1], e.fpar[2],
+                                       e.fpar[13], f)
+        if want_u is not None:
+            assert abs(u) < 1e-9 and abs(f[0, 0]) < 1e-8
+        else:
+            fc = 48 * 2.5 ** -13 - 24 * 2.5 ** -7
+            assert u == pytest.approx(lj_pair(1.5) - lj_pair(2.5) + (1.5 - 2.5) * fc, rel=1e-12)
 
 
 @pytest.mark.parametrize("producing", [False, True])

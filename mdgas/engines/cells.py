@@ -232,7 +232,7 @@ def list_capacity(density: float, rlist: float, half: bool) -> int:
     """A starting row capacity: the mean full-list row plus generous room for
     fluctuations (rows grow automatically when a build finds more)."""
     mean = density * 4.0 / 3.0 * math.pi * rlist ** 3
-    return int(math.ceil(1.3 * mean + 6.0 * math.sqrt(mean + 1.0) + 8.0))
+    return int(math.ceil(mean + 5.0 * math.sqrt(mean + 1.0) + 8.0))
 
 
 @njit(cache=True, error_model="numpy")

@@ -13,7 +13,12 @@ Physics
   beyond r_c. In a walled box that is not so near the walls (there is no fluid beyond a
   wall), so there the corrections are the bulk value at the mean density N/V: a fair
   guide for wide containers, an overestimate of the attraction for narrow ones. The wall
-  pressure is a direct measurement and never gets a tail correction.
+  pressure is a direct measurement and never gets a tail correction. ``"shifted-force"``
+  also subtracts the force at r_c, u(r) - u(r_c) + (r - r_c) F(r_c) (Toxvaerd & Dyre,
+  J. Chem. Phys. 134, 081102 (2011)): force and energy both reach zero at r_c, which
+  removes the random walk of the total energy that the force jump at r_c drives in the
+  other two (a different, slightly less attractive model: compare with references for
+  it only at large r_c).
 - Velocity Verlet (common practice), whole chunk of steps in one compiled call.
 - CSVR thermostat (Bussi, Donadio & Parrinello, J. Chem. Phys. 126, 014101 (2007)):
   the kinetic energy follows the exact stochastic relaxation towards the canonical
@@ -75,7 +80,7 @@ OK, BLOWUP, ESCAPED = 0, 1, 2
 
 # fpar slots
 _DT, _RC2, _USHIFT, _RLIST2, _SKIN, _WEPS, _WSIG, _WCUT, _WSHIFT, _WTEMP, _KTARGET, \
-    _CTHERMO, _KLIMIT = range(13)
+    _CTHERMO, _KLIMIT, _FC = range(14)
 # ipar slots
 _WKIND, _THERMO, _HALF, _NDOF, _REACH = range(5)
 
@@ -83,13 +88,14 @@ _WKIND, _THERMO, _HALF, _NDOF, _REACH = range(5)
 # -- forces ---------------------------------------------------------------------------
 
 @njit(cache=True, parallel=True, fastmath=FAST, error_model="numpy")
-def pair_forces_full(pos, nbr, count, lp, ilp, rc2, ushift, force):
+def pair_forces_full(pos, nbr, count, lp, ilp, rc2, ushift, fc, force):
     """LJ forces from a full list (each pair seen from both sides, no writes to j).
 
     Returns (U, W_xx, W_yy, W_zz): pair energy (shifted by ``ushift`` per pair inside
     r_c) and the diagonal pair virial Σ_pairs r_ij,a F_ij,a.
     """
     n = pos.shape[0]
+    rc = math.sqrt(rc2)
     lx, ly, lz = lp[0], lp[1], lp[2]
     ix, iy, iz = ilp[0], ilp[1], ilp[2]
     u = 0.0
@@ -119,6 +125,10 @@ def pair_forces_full(pos, nbr, count, lp, ilp, rc2, ushift, force):
                 ir6 = ir2 * ir2 * ir2
                 ff = 48.0 * ir6 * (ir6 - 0.5) * ir2
                 ui += 4.0 * ir6 * (ir6 - 1.0) - ushift
+                if fc != 0.0:   # shifted force (loop-invariant: the branch is hoisted)
+                    ir = np.sqrt(ir2)
+                    ff -= fc * ir
+                    ui += fc * (r2 * ir - rc)
                 fx += ff * dx
                 fy += ff * dy
                 fz += ff * dz
@@ -136,7 +146,7 @@ def pair_forces_full(pos, nbr, count, lp, ilp, rc2, ushift, force):
 
 
 @njit(cache=True, parallel=True, fastmath=FAST, error_model="numpy")
-def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, force, fbuf):
+def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, fc, force, fbuf):
     """LJ forces from a half list, one (N, 3) force buffer per thread in ``fbuf``.
 
     Each buffer takes the rows of one contiguous block of particles, so no two threads
@@ -146,7 +156,8 @@ def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, force, fbuf):
     n = pos.shape[0]
     nb = fbuf.shape[0]
     if nb == 1:   # one thread: straight into ``force``, no buffer pass, no parallel region
-        return _half_serial(pos, nbr, count, lp, ilp, rc2, ushift, force)
+        return _half_serial(pos, nbr, count, lp, ilp, rc2, ushift, fc, force)
+    rc = math.sqrt(rc2)
     lx, ly, lz = lp[0], lp[1], lp[2]
     ix, iy, iz = ilp[0], ilp[1], ilp[2]
     parts = np.zeros((nb, 4))
@@ -179,6 +190,10 @@ def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, force, fbuf):
                     ir6 = ir2 * ir2 * ir2
                     ff = 48.0 * ir6 * (ir6 - 0.5) * ir2
                     u += 4.0 * ir6 * (ir6 - 1.0) - ushift
+                    if fc != 0.0:
+                        ir = np.sqrt(ir2)
+                        ff -= fc * ir
+                        u += fc * (r2 * ir - rc)
                     fx += ff * dx
                     fy += ff * dy
                     fz += ff * dz
@@ -214,9 +229,10 @@ def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, force, fbuf):
 
 
 @njit(cache=True, fastmath=FAST, error_model="numpy")
-def _half_serial(pos, nbr, count, lp, ilp, rc2, ushift, force):
+def _half_serial(pos, nbr, count, lp, ilp, rc2, ushift, fc, force):
     """:func:`pair_forces_half` on one thread, accumulating into ``force`` directly."""
     n = pos.shape[0]
+    rc = math.sqrt(rc2)
     lx, ly, lz = lp[0], lp[1], lp[2]
     ix, iy, iz = ilp[0], ilp[1], ilp[2]
     for i in range(n):
@@ -246,6 +262,10 @@ def _half_serial(pos, nbr, count, lp, ilp, rc2, ushift, force):
                 ir6 = ir2 * ir2 * ir2
                 ff = 48.0 * ir6 * (ir6 - 0.5) * ir2
                 u += 4.0 * ir6 * (ir6 - 1.0) - ushift
+                if fc != 0.0:
+                    ir = np.sqrt(ir2)
+                    ff -= fc * ir
+                    u += fc * (r2 * ir - rc)
                 fx += ff * dx
                 fy += ff * dy
                 fz += ff * dz
@@ -262,7 +282,7 @@ def _half_serial(pos, nbr, count, lp, ilp, rc2, ushift, force):
 
 
 @njit(cache=True, error_model="numpy")
-def pair_forces_brute(pos, lp, ilp, rc2, ushift, force):
+def pair_forces_brute(pos, lp, ilp, rc2, ushift, fc, force):
     """O(N²) reference loop over all pairs (tests only). Returns (U, W_xx, W_yy, W_zz)."""
     n = pos.shape[0]
     force[:] = 0.0
@@ -277,8 +297,9 @@ def pair_forces_brute(pos, lp, ilp, rc2, ushift, force):
             r2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2]
             if r2 < rc2:
                 ir6 = 1.0 / (r2 * r2 * r2)
-                ff = 48.0 * ir6 * (ir6 - 0.5) / r2
-                u += 4.0 * ir6 * (ir6 - 1.0) - ushift
+                r = math.sqrt(r2)
+                ff = 48.0 * ir6 * (ir6 - 0.5) / r2 - fc / r
+                u += 4.0 * ir6 * (ir6 - 1.0) - ushift + fc * (r - math.sqrt(rc2))
                 for a in range(3):
                     force[i, a] += ff * d[a]
                     force[j, a] -= ff * d[a]
@@ -367,9 +388,10 @@ def _forces(x, nbr, count, box, lp, ilp, walled, fpar, ipar, f, fbuf, fwall):
     """All forces on the particles; returns (U_pairs, W_xx, W_yy, W_zz, U_walls)."""
     if ipar[_HALF]:
         u, wx, wy, wz = pair_forces_half(x, nbr, count, lp, ilp, fpar[_RC2], fpar[_USHIFT],
-                                         f, fbuf)
+                                         fpar[_FC], f, fbuf)
     else:
-        u, wx, wy, wz = pair_forces_full(x, nbr, count, lp, ilp, fpar[_RC2], fpar[_USHIFT], f)
+        u, wx, wy, wz = pair_forces_full(x, nbr, count, lp, ilp, fpar[_RC2], fpar[_USHIFT],
+                                         fpar[_FC], f)
     uw = 0.0
     if ipar[_WKIND] == LJ93:
         uw = lj93_wall_forces(x, box, walled, fpar[_WEPS], fpar[_WSIG], fpar[_WCUT],
@@ -645,12 +667,15 @@ class LennardJones(Engine):
         self.n = s.gas.particles
         rc = p.cutoff
         self.rlist = rc + p.skin
+        fc = 0.0
         if p.tail == "corrected":
             self.energy_tail, self.pressure_tail = tail_corrections(s.gas.density, rc)
             ushift = 0.0
         else:
             self.energy_tail, self.pressure_tail = 0.0, 0.0
             ushift = lj_pair(rc)
+            if p.tail == "shifted-force":
+                fc = 48.0 * rc ** -13 - 24.0 * rc ** -7   # F(r_c) = -u'(r_c)
         mode = getattr(p, "neighbour_list", "auto")
         self.half = (s.gas.density < FULL_LIST_DENSITY) if mode == "auto" else mode == "half"
         self.lp, self.ilp = image_arrays(self.box, s.walled)
@@ -661,7 +686,8 @@ class LennardJones(Engine):
         self.kind = WALL_CODES[c.wall] if c.walls != "none" else WALL_CODES["specular"]
         wall_shift = lj93_potential(c.wall_cutoff, c.wall_epsilon, c.wall_sigma, 0.0)
         self.ndof = kinetic_dof(s)
-        self.fpar = np.zeros(13)
+        self.fpar = np.zeros(14)
+        self.fpar[_FC] = fc
         self.fpar[[_DT, _RC2, _USHIFT, _RLIST2, _SKIN]] = [sch.timestep, rc * rc, ushift,
                                                            self.rlist ** 2, p.skin]
         self.fpar[[_WEPS, _WSIG, _WCUT, _WSHIFT, _WTEMP]] = [
