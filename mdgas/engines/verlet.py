@@ -146,12 +146,14 @@ def pair_forces_full(pos, nbr, count, lp, ilp, rc2, ushift, fc, force):
 
 
 @njit(cache=True, parallel=True, fastmath=FAST, error_model="numpy")
-def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, fc, force, fbuf):
+def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, fc, force, fbuf, defer=False):
     """LJ forces from a half list, one (N, 3) force buffer per thread in ``fbuf``.
 
     Each buffer takes the rows of one contiguous block of particles, so no two threads
     write the same memory; the buffers are summed in a fixed order (deterministic for a
-    given buffer count). Returns (U, W_xx, W_yy, W_zz) as :func:`pair_forces_full`.
+    given buffer count). ``defer`` leaves the sum to the caller (:func:`sum_buffers`,
+    or the next half-kick, which saves a parallel region). Returns (U, W_xx, W_yy, W_zz)
+    as :func:`pair_forces_full`.
     """
     n = pos.shape[0]
     nb = fbuf.shape[0]
@@ -210,22 +212,34 @@ def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, fc, force, fbuf):
         parts[t, 1] = wx
         parts[t, 2] = wy
         parts[t, 3] = wz
-    for i in prange(n):
-        sx = 0.0
-        sy = 0.0
-        sz = 0.0
-        for t in range(nb):
-            sx += fbuf[t, i, 0]
-            sy += fbuf[t, i, 1]
-            sz += fbuf[t, i, 2]
-        force[i, 0] = sx
-        force[i, 1] = sy
-        force[i, 2] = sz
+    if not defer:
+        sum_buffers(fbuf, force)
     tot = np.zeros(4)
     for t in range(nb):
         for s in range(4):
             tot[s] += parts[t, s]
     return tot[0], tot[1], tot[2], tot[3]
+
+
+@njit(cache=True, inline="always")
+def _sum_row(fbuf, force, i):
+    sx = 0.0
+    sy = 0.0
+    sz = 0.0
+    for t in range(fbuf.shape[0]):
+        sx += fbuf[t, i, 0]
+        sy += fbuf[t, i, 1]
+        sz += fbuf[t, i, 2]
+    force[i, 0] = sx
+    force[i, 1] = sy
+    force[i, 2] = sz
+
+
+@njit(cache=True, parallel=True, error_model="numpy")
+def sum_buffers(fbuf, force):
+    """force[i] = Σ_t fbuf[t, i], buffers in a fixed order."""
+    for i in prange(force.shape[0]):
+        _sum_row(fbuf, force, i)
 
 
 @njit(cache=True, fastmath=FAST, error_model="numpy")
@@ -384,11 +398,12 @@ def _rebuild(x, v, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3, itm
 
 
 @njit(cache=True, error_model="numpy")
-def _forces(x, nbr, count, box, lp, ilp, walled, fpar, ipar, f, fbuf, fwall):
-    """All forces on the particles; returns (U_pairs, W_xx, W_yy, W_zz, U_walls)."""
+def _forces(x, nbr, count, box, lp, ilp, walled, fpar, ipar, f, fbuf, fwall, defer=False):
+    """All forces on the particles; returns (U_pairs, W_xx, W_yy, W_zz, U_walls).
+    ``defer`` may leave the pair forces in the per-thread buffers (no 9-3 walls only)."""
     if ipar[_HALF]:
         u, wx, wy, wz = pair_forces_half(x, nbr, count, lp, ilp, fpar[_RC2], fpar[_USHIFT],
-                                         fpar[_FC], f, fbuf)
+                                         fpar[_FC], f, fbuf, defer and ipar[_WKIND] != LJ93)
     else:
         u, wx, wy, wz = pair_forces_full(x, nbr, count, lp, ilp, fpar[_RC2], fpar[_USHIFT],
                                          fpar[_FC], f)
@@ -450,10 +465,13 @@ def _kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, ilp):
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
-def _kick(v, f, hdt):
-    """Second half-kick; returns Σ v² after it."""
+def _kick(v, f, hdt, fbuf, pending):
+    """Second half-kick; returns Σ v² after it. ``pending``: first complete ``f`` from
+    the per-thread force buffers (see :func:`pair_forces_half`)."""
     ke2 = 0.0
     for i in prange(v.shape[0]):
+        if pending:
+            _sum_row(fbuf, f, i)
         s = 0.0
         for a in range(3):
             v[i, a] += hdt * f[i, a]
@@ -463,13 +481,15 @@ def _kick(v, f, hdt):
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
-def _kick_kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, ilp):
+def _kick_kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, ilp, fbuf, pending):
     """The second half-kick of one step fused with the first half of the next, in one
     pass (same arithmetic as :func:`_kick` then :func:`_kick_drift`); returns Σ v² at
     the end of the step and the largest squared displacement since the list build."""
     ke2 = 0.0
     moved = 0.0
     for i in prange(x.shape[0]):
+        if pending:
+            _sum_row(fbuf, f, i)
         s = 0.0
         for a in range(3):
             vh = v[i, a] + hdt * f[i, a]
@@ -505,6 +525,8 @@ def verlet_chunk(nsteps, x, v, f, ids, xref, nbr, count, cell_start, order, cell
     fwall = np.zeros(6)
     done = 0
     thermo = ipar[_THERMO] == 1
+    # Pair forces left in the per-thread buffers, summed by the next half-kick.
+    pending = half and fbuf.shape[0] > 1 and kind != LJ93
     moved = _kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, ilp)
     for step in range(nsteps):
         if any_wall:
@@ -535,14 +557,15 @@ def verlet_chunk(nsteps, x, v, f, ids, xref, nbr, count, cell_start, order, cell
                            itmp, lp, ilp, ncell, inv_width, fpar[_RLIST2], half, ipar[_REACH])
             acc[REBUILDS] += 1.0
         u, wx, wy, wz, uw = _forces(x, nbr, count, box, lp, ilp, walled, fpar, ipar, f, fbuf,
-                                    fwall)
+                                    fwall, True)
         last = step == nsteps - 1
         # Plain NVE fuses this step's last half-kick with the next step's first half;
         # the thermostat needs the end-of-step kinetic energy first, so it cannot.
         if thermo or last:
-            ke = 0.5 * _kick(v, f, hdt)
+            ke = 0.5 * _kick(v, f, hdt, fbuf, pending)
         else:
-            ke2, moved = _kick_kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, ilp)
+            ke2, moved = _kick_kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, ilp, fbuf,
+                                          pending)
             ke = 0.5 * ke2
         if thermo:
             alpha = csvr_factor(ke, fpar[_KTARGET], ipar[_NDOF], fpar[_CTHERMO], rng)
