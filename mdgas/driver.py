@@ -329,7 +329,7 @@ class _Loop:
             self.hist.load(histograms)
         # Production samples behind the stderr(Z) of target_stderr: wall pressure rows,
         # virial pressure, temperature.
-        self.production = production if production else ([], [], [])
+        self.production = production if production else tuple([] for _ in _Z_SERIES)
         self.progress = progress
         self.every = 60.0 * outp.checkpoint_every
 
@@ -500,29 +500,28 @@ class _Loop:
         return True
 
 
-_Z_SERIES = ("pressure_wall", "pressure_virial", "temperature")
+_Z_SERIES = ("pressure_wall", "pressure_virial", "temperature", "temperature_axes")
 
 
-def z_stderr(settings: Settings, pressure_wall: np.ndarray, pressure_virial: np.ndarray,
-             temperature: np.ndarray) -> float:
-    """Block-averaging stderr of Z = <P>/(ρ<T>) from production samples, computed as
-    mdgas.analysis.summary does (wall pressure averaged over the walled faces, else the
-    virial; the ratio's error keeps the P-T correlation). Unlike the summary it does
-    not drop an automatically detected equilibration stretch."""
+def z_stderr(settings: Settings, *series: np.ndarray) -> float:
+    """Block-averaging stderr of Z from production samples of ``_Z_SERIES``, computed
+    by the summary's own rule (:func:`mdgas.analysis.summary.z_inputs`). Unlike the
+    summary it does not drop an automatically detected equilibration stretch."""
     from .analysis.statistics import ratio_series
-    if len(temperature) < 4:
+    from .analysis.summary import z_inputs
+    if len(series[2]) < 4:
         return math.inf
-    faces = [k for k in range(6) if settings.walled[k // 2]]
-    p = pressure_wall[:, faces].mean(axis=1) if faces else pressure_virial
-    z = ratio_series(p, temperature, 1.0 / settings.gas.density)
+    arrays = dict(zip(_Z_SERIES, series))
+    _, p, t = z_inputs(settings, arrays.__getitem__)
+    z = ratio_series(p, t, 1.0 / settings.gas.density)
     return z.stderr if math.isfinite(z.stderr) else math.inf
 
 
-def _production_rows(raw: dict, n_samples: int) -> tuple[list, list, list]:
+def _production_rows(raw: dict, n_samples: int) -> tuple[list, ...]:
     """The production samples among the first ``n_samples`` of a run file, as rows."""
     times = raw["times"][:n_samples]
     if not len(times):
-        return [], [], []
+        return tuple([] for _ in _Z_SERIES)
     settings_dt = float(raw["parameters"]["output"]["sample_every"])
     start = float(raw["meta"]["production_start"])
     # Same rule as mdgas.run.Run.production_mask: a sample stamped at the end of an

@@ -78,6 +78,9 @@ def sample_row(settings, engine, state: dict, acc: np.ndarray, duration: float) 
         "potential_energy": np.array((pot + wall_u) / n),
         "total_energy": np.array((ke + pot + wall_u) / n),
         "temperature": np.array(2.0 * ke / kinetic_dof(settings)),
+        # Per-axis kinetic temperature: the wall pressure on a face follows the kinetic
+        # energy along its normal, which in a dilute gas drifts slowly away from the mean.
+        "temperature_axes": kin * (3.0 / kinetic_dof(settings)),
         "collisions": np.array(acc[COLLISIONS]),
         "thermostat_work": np.array(acc[THERMOSTAT]),
         # Chunk-averaged K + U per particle: in NVE it is conserved from sample to sample,

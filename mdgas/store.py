@@ -60,7 +60,8 @@ SERIES_CHUNK = 256
 OBSERVABLE_UNITS = {
     "pressure_wall": "ε/σ³", "wall_hits": "1", "pressure_tensor": "ε/σ³",
     "pressure_virial": "ε/σ³", "kinetic_energy": "ε", "potential_energy": "ε",
-    "total_energy": "ε", "temperature": "ε/k", "collisions": "1", "thermostat_work": "ε",
+    "total_energy": "ε", "temperature": "ε/k", "temperature_axes": "ε/k", "collisions": "1",
+    "thermostat_work": "ε",
 }
 
 

@@ -164,7 +164,8 @@ def fig_map(folder, crossings: Sequence[bd.Crossing]):
         return None
     keys = bd.group_keys(folder.varied_keys)
     n = len(panels)
-    fig, axes = plt.subplots(n, 2, figsize=(11.0, 4.0 * n), squeeze=False)
+    fig, axes = plt.subplots(n, 2, figsize=(11.0, 4.2 * n + 0.6), squeeze=False,
+                             layout="constrained")
     allz = np.concatenate([np.abs(c.y) for _, cs in panels for c in cs])
     lo = max(float(np.nanmin(allz[allz > 0])) if (allz > 0).any() else 1e-4, 1e-5)
     norm = colors.LogNorm(vmin=lo, vmax=max(float(np.nanmax(allz)), lo * 10))

@@ -321,8 +321,10 @@ def test_example_sweep_files_expand_to_valid_runs():
     configs = Path(__file__).resolve().parents[1] / "configs"
     sweeps = [f for f in sorted(configs.glob("sweep-*.toml"))
               if not f.name.startswith("sweep-base-")]  # sweep-base-*: a sweep's base config
-    assert len(sweeps) >= 3
+    assert len(sweeps) >= 2
     for f in sweeps:
         assert f.read_text().lstrip().startswith("#")
         pts = sweep.load(f).expand()
         assert pts and all(p.settings is not None for p in pts), f
+    demo = sweep.from_text(sweep.DEMO_TEXT, source="<embedded demo sweep>").expand()
+    assert len(demo) == 30 and all(p.settings is not None for p in demo)

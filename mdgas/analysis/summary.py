@@ -7,7 +7,7 @@ that carry uncertainty are ``{"mean": x, "stderr": s}`` in the JSON form.
 from __future__ import annotations
 
 import dataclasses
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 
@@ -21,49 +21,61 @@ def _face_estimates(run) -> dict[str, Estimate]:
     return {FACES[k]: estimate(pw[:, k]) for k in range(6) if run.settings.walled[k // 2]}
 
 
-def wall_pressure(run) -> Estimate | None:
-    """Wall pressure over every walled face (ε/σ³), or None without walls.
+def z_inputs(settings, series: Callable[[str], np.ndarray]) -> tuple[str, np.ndarray, np.ndarray]:
+    """(source, per-sample pressure, per-sample temperature) behind Z = <P> / (ρ <kT>).
 
-    Area-weighted: the total impulse on all walls per total wall area and time, so a
-    small, rarely hit face (the end cap of a tall column) does not dominate the noise.
+    With walls: the area-weighted wall pressure over the walled faces (total impulse
+    per total wall area, so a small, rarely hit end cap does not dominate the noise),
+    divided by the same area-weighted kinetic temperature of the faces' normal axes.
+    The wall pressure follows the kinetic energy along its normal, which in a dilute
+    gas between walls drifts away from the mean for hundreds of τ; the ratio cancels
+    that drift (in equilibrium <T_a> = <T>, so the estimate is unchanged). Without
+    walls: the virial pressure over the kinetic temperature. ``series(name)`` returns
+    an observable's production samples.
     """
-    faces = [k for k in range(6) if run.settings.walled[k // 2]]
+    faces = [k for k in range(6) if settings.walled[k // 2]]
+    temp = np.asarray(series("temperature"), dtype=float)
     if not faces:
-        return None
-    _, pw = run.series("pressure_wall")
-    box = run.settings.box
+        return "virial", np.asarray(series("pressure_virial"), dtype=float), temp
+    box = settings.box
     area = np.array([box[1] * box[2], box[0] * box[2], box[0] * box[1]]).repeat(2)[faces]
-    return estimate(pw[:, faces] @ (area / area.sum()))
+    w = area / area.sum()
+    p = np.asarray(series("pressure_wall"), dtype=float)[:, faces] @ w
+    try:
+        t_axes = np.asarray(series("temperature_axes"), dtype=float)
+        temp = t_axes[:, [k // 2 for k in faces]] @ w
+    except KeyError:  # run files written before per-axis temperatures were recorded
+        pass
+    return "wall", p, temp
+
+
+def _z_inputs(run) -> tuple[str, np.ndarray, np.ndarray]:
+    return z_inputs(run.settings, lambda name: run.series(name)[1])
+
+
+def wall_pressure(run) -> Estimate | None:
+    """Area-weighted wall pressure over every walled face (ε/σ³), or None without walls."""
+    src, p, _ = _z_inputs(run)
+    return estimate(p) if src == "wall" else None
 
 
 def measured_pressure(run) -> tuple[str, Estimate]:
     """The pressure Z is built on: wall pressure with walls, virial pressure without."""
-    pw = wall_pressure(run)
-    if pw is not None:
-        return "wall", pw
-    _, pv = run.series("pressure_virial")
-    return "virial", estimate(pv)
+    src, p, _ = _z_inputs(run)
+    return src, estimate(p)
 
 
 def pressure_series(run) -> tuple[str, np.ndarray]:
-    """(source, per-sample pressure) behind Z: walled faces' mean, else the virial."""
-    faces = [k for k in range(6) if run.settings.walled[k // 2]]
-    if faces:
-        _, pw = run.series("pressure_wall")
-        return "wall", pw[:, faces].mean(axis=1)
-    _, pv = run.series("pressure_virial")
-    return "virial", np.asarray(pv, dtype=float)
+    """(source, per-sample pressure) behind Z."""
+    src, p, _ = _z_inputs(run)
+    return src, p
 
 
 def compressibility(run) -> Estimate:
-    """Z = <P> / (ρ <kT>) with the measured kinetic temperature.
-
-    The error keeps the correlation of pressure and temperature samples
-    (:func:`mdgas.analysis.statistics.ratio_series`).
-    """
-    _, p = pressure_series(run)
-    _, temp = run.series("temperature")
-    return ratio_series(p, temp, 1.0 / run.settings.gas.density)
+    """Z = <P> / (ρ <kT>), the error keeping the correlation of P and T samples
+    (:func:`mdgas.analysis.statistics.ratio_series`); see :func:`z_inputs`."""
+    _, p, t = _z_inputs(run)
+    return ratio_series(p, t, 1.0 / run.settings.gas.density)
 
 
 def si_state(run, t: Estimate, p: Estimate) -> dict[str, Any] | None:
