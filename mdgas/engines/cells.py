@@ -242,27 +242,22 @@ def mirror_half_list(nbr, count, fill):
     computes each distance once instead of twice.
 
     ``fill`` (N,) int64 is scratch. Returns the longest full row; when that exceeds the
-    capacity nothing is changed and the caller grows ``nbr`` and builds again.
+    capacity the rows are incomplete and the caller must grow ``nbr`` and build again.
     """
     n = nbr.shape[0]
     cap = nbr.shape[1]
     for i in range(n):
         fill[i] = count[i]
     for i in range(n):
+        # Row i's own half entries (j > i) were written by the build and are never
+        # touched here: rows only receive k < their own index, after their half part.
         for k in range(count[i]):
-            fill[nbr[i, k]] += 1
+            j = nbr[i, k]
+            if fill[j] < cap:
+                nbr[j, fill[j]] = i
+            fill[j] += 1
     widest = 0
     for i in range(n):
         widest = max(widest, fill[i])
-    if widest > cap:
-        return widest
-    for i in range(n):
-        fill[i] = count[i]
-    for i in range(n):
-        for k in range(count[i]):
-            j = nbr[i, k]
-            nbr[j, fill[j]] = i
-            fill[j] += 1
-    for i in range(n):
-        count[i] = fill[i]
+        count[i] = min(fill[i], cap)
     return widest
