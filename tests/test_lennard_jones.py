@@ -333,7 +333,13 @@ def test_run_and_summary_json_through_the_command_line(tmp_path, capsys):
                    '[schedule]\nequilibrate = 5.0\nproduce = 20.0\n'
                    '[output]\nframe_every = 0.0\n')
     out = tmp_path / "lj.h5"
-    assert cli_main(["run", str(cfg), "-o", str(out), "--threads", "1", "-q"]) == 0
+    import numba
+    outer = numba.get_num_threads()
+    try:
+        assert cli_main(["run", str(cfg), "-o", str(out), "--threads", "1", "-q"]) == 0
+        assert numba.get_num_threads() == 1
+    finally:
+        numba.set_num_threads(outer)     # --threads sets the process-wide default
     capsys.readouterr()
     assert cli_main(["summary", str(out), "--json"]) == 0
     summary = json.loads(capsys.readouterr().out)
