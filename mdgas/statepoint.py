@@ -95,7 +95,7 @@ def equation_for(model: str, tail: str = "corrected", cutoff: float = 3.0) -> Eq
                                max_density=6.0 * HS_FREEZING_ETA / math.pi)
     if model != "lennard-jones":
         raise ValueError(f"no equation of state for model {model!r}")
-    shifted = tail == "shifted"
+    shifted = tail != "corrected"  # "shifted" or "shifted-force": no tail beyond r_c
 
     def minus_tail(t: float, r: float) -> float:
         # The run's forces stop at r_c and it adds no tail: take the tail off the EOS.

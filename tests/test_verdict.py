@@ -139,7 +139,8 @@ def test_wall_vs_virial_check_fails_when_they_disagree(ideal_run):
 def test_energy_drift_check_fails_on_a_drift(ideal_run):
     e = ideal_run.observables["total_energy"]
     drift = e + 0.05 * np.linspace(0.0, 1.0, len(e))
-    assert V.check_energy_drift(_tampered(ideal_run, total_energy=drift))["status"] == "fail"
+    tampered = _tampered(ideal_run, total_energy=drift, energy_mean=drift)
+    assert V.check_energy_drift(tampered)["status"] == "fail"
 
 
 def test_maxwell_boltzmann_check_fails_for_uniform_speeds(ideal_run):

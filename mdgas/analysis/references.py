@@ -252,9 +252,9 @@ def predictions(model: str, density: float, temperature: float, *, tail: str = "
                        f"B2ρ = {b2rho:.3g}; truncated series, good for |B2ρ| < 0.1",
                        in_range=abs(b2rho) < 0.1))
     elif model == "lennard-jones":
-        shifted = tail == "shifted"
+        shifted = tail != "corrected"  # "shifted" or "shifted-force": no tail beyond r_c
         full_note = ("describes the full potential; this run used the potential truncated "
-                     f"and shifted at r_c = {cutoff:g} σ without tail correction, so a "
+                     f"at r_c = {cutoff:g} σ ({tail}) without tail correction, so a "
                      "systematic difference is expected" if shifted else
                      "full potential; comparable because the run adds the tail correction")
         b2 = lj_b2(temperature, cutoff if shifted else None)
