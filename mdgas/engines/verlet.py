@@ -87,6 +87,25 @@ _WKIND, _THERMO, _HALF, _NDOF, _REACH = range(5)
 
 # -- forces ---------------------------------------------------------------------------
 
+@njit(cache=True, inline="always", error_model="numpy", fastmath=FAST)
+def _lj_pair(r2, ushift, fc, rc):
+    """(F/r, u) of one pair at squared distance r2 < r_c², for the half-list loops.
+
+    ``ushift`` shifts the energy to zero at r_c; ``fc`` (the force at r_c, or 0) makes it
+    shifted-force. The vectorised full-list loop keeps its own copy of these lines on
+    purpose: it must stay a flat loop body for LLVM to vectorise.
+    """
+    ir2 = 1.0 / r2
+    ir6 = ir2 * ir2 * ir2
+    ff = 48.0 * ir6 * (ir6 - 0.5) * ir2
+    u = 4.0 * ir6 * (ir6 - 1.0) - ushift
+    if fc != 0.0:
+        ir = np.sqrt(ir2)
+        ff -= fc * ir
+        u += fc * (r2 * ir - rc)
+    return ff, u
+
+
 @njit(cache=True, parallel=True, fastmath=FAST, error_model="numpy")
 def pair_forces_full(pos, nbr, count, lp, ilp, rc2, ushift, fc, force):
     """LJ forces from a full list (each pair seen from both sides, no writes to j).
@@ -188,14 +207,8 @@ def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, fc, force, fbuf, def
                 dz -= lz * np.rint(dz * iz)
                 r2 = dx * dx + dy * dy + dz * dz
                 if r2 < rc2:
-                    ir2 = 1.0 / r2
-                    ir6 = ir2 * ir2 * ir2
-                    ff = 48.0 * ir6 * (ir6 - 0.5) * ir2
-                    u += 4.0 * ir6 * (ir6 - 1.0) - ushift
-                    if fc != 0.0:
-                        ir = np.sqrt(ir2)
-                        ff -= fc * ir
-                        u += fc * (r2 * ir - rc)
+                    ff, uij = _lj_pair(r2, ushift, fc, rc)
+                    u += uij
                     fx += ff * dx
                     fy += ff * dy
                     fz += ff * dz
@@ -272,14 +285,8 @@ def _half_serial(pos, nbr, count, lp, ilp, rc2, ushift, fc, force):
             dz -= lz * np.rint(dz * iz)
             r2 = dx * dx + dy * dy + dz * dz
             if r2 < rc2:
-                ir2 = 1.0 / r2
-                ir6 = ir2 * ir2 * ir2
-                ff = 48.0 * ir6 * (ir6 - 0.5) * ir2
-                u += 4.0 * ir6 * (ir6 - 1.0) - ushift
-                if fc != 0.0:
-                    ir = np.sqrt(ir2)
-                    ff -= fc * ir
-                    u += fc * (r2 * ir - rc)
+                ff, uij = _lj_pair(r2, ushift, fc, rc)
+                u += uij
                 fx += ff * dx
                 fy += ff * dy
                 fz += ff * dz
