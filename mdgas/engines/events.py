@@ -57,10 +57,13 @@ MIN_WALLED_EDGE = 2.0
 #: are wall hits at that face.
 WALL = 6
 
-# Columns of the hot per-particle array: position (3), velocity (3), local time,
-# event counter. One row is 64 bytes, so a neighbour costs one cache line.
+# Columns of the hot per-particle array: position (3), velocity (3), local time, and
+# in the last 8 bytes two int32 (seen through an int32 view of the same rows, columns
+# 14 and 15): the next particle in the cell list and the event counter. One row is 64
+# bytes, aligned, so a neighbour costs one cache line.
 _T = 6
-_CNT = 7
+_NXT = 14
+_CNT = 15
 
 
 def packing_fraction(density: float) -> float:
@@ -75,7 +78,7 @@ def accessible_volume(box: np.ndarray, walled) -> float:
 
 # Heap ---------------------------------------------------------------------------------
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _sift_up(heap, hpos, k, t, i):
     # heap[k] = (event time, particle as a float): one cache line holds both
     while k > 0:
@@ -91,7 +94,7 @@ def _sift_up(heap, hpos, k, t, i):
     hpos[i] = k
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _sift_down(heap, hpos, k, t, i):
     n = heap.shape[0]
     while True:
@@ -111,7 +114,7 @@ def _sift_down(heap, hpos, k, t, i):
     hpos[i] = k
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _reschedule(heap, hpos, tcol, tcross, i):
     t = tcol[i] if tcol[i] < tcross[i] else tcross[i]
     k = hpos[i]
@@ -123,27 +126,27 @@ def _reschedule(heap, hpos, tcol, tcross, i):
 
 # Cells --------------------------------------------------------------------------------
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _cell_of(cell, nc, i):
     return (cell[i, 2] * nc[1] + cell[i, 1]) * nc[0] + cell[i, 0]
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _cell_insert(head, nxt, prv, cell, nc, i):
     c = _cell_of(cell, nc, i)
     h = head[c]
-    nxt[i] = h
+    nxt[i, _NXT] = h
     prv[i] = -1
     if h >= 0:
         prv[h] = i
     head[c] = i
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _cell_remove(head, nxt, prv, cell, nc, i):
-    n, p = nxt[i], prv[i]
+    n, p = nxt[i, _NXT], prv[i]
     if p >= 0:
-        nxt[p] = n
+        nxt[p, _NXT] = n
     else:
         head[_cell_of(cell, nc, i)] = n
     if n >= 0:
@@ -152,7 +155,7 @@ def _cell_remove(head, nxt, prv, cell, nc, i):
 
 # Prediction ---------------------------------------------------------------------------
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _move(P, i, t):
     dt = t - P[i, _T]
     P[i, 0] += P[i, 3] * dt
@@ -161,7 +164,7 @@ def _move(P, i, t):
     P[i, _T] = t
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _crossing(P, cell, nc, cs, box, walled, tcross, code, i, now):
     """Next cell crossing or wall hit of ``i`` (up to date at ``now``)."""
     best = np.inf
@@ -193,7 +196,7 @@ def _crossing(P, cell, nc, cs, box, walled, tcross, code, i, now):
     code[i] = which
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
           layer_axis, layer_side, skip):
     """Look for a collision of ``i`` earlier than its candidate in the neighbour cells.
@@ -277,11 +280,11 @@ def _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
                                 if now + tc < best:
                                     best = now + tc
                                     bestj = j
-                    j = nxt[j]
+                    j = nxt[j, _NXT]
     if bestj >= 0:
         tcol[i] = best
         partner[i] = bestj
-        pcount[i] = P[bestj, _CNT]
+        pcount[i] = nxt[bestj, _CNT]
 
 
 # The chunk ----------------------------------------------------------------------------
@@ -305,7 +308,7 @@ def cell_grid(box, walled, n):
     return nc, cs
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
     """Advance hard spheres by ``duration`` (τ) exactly; update ``pos``/``vel`` in place.
 
@@ -316,18 +319,28 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
     n = pos.shape[0]
     nc, cs = cell_grid(box, walled, n)
     ncell = nc[0] * nc[1] * nc[2]
-    P = np.empty((n, 8))
-    cell = np.empty((n, 3), dtype=np.int32)
+    # rows of 64 bytes start on a cache-line boundary, so a neighbour is one line
+    buf = np.empty(n * 8 + 8)
+    off = ((64 - buf.ctypes.data % 64) % 64) // 8
+    P = buf[off:off + n * 8].reshape((n, 8))
+    nxt = buf.view(np.int32)[2 * off:2 * off + n * 16].reshape((n, 16))
+    # the bookkeeping of a particle shares one aligned 64-byte row too: collision and
+    # crossing times (float64), then as int32 partner, its counter then, event code,
+    # previous particle in the cell list, cell (3) and heap position
+    bbuf = np.empty(n * 8 + 8)
+    boff = ((64 - bbuf.ctypes.data % 64) % 64) // 8
+    B = bbuf[boff:boff + n * 8].reshape((n, 8))
+    Bi = bbuf.view(np.int32)[2 * boff:2 * boff + n * 16].reshape((n, 16))
+    tcol = B[:, 0]
+    tcross = B[:, 1]
+    partner = Bi[:, 4]
+    pcount = Bi[:, 5]
+    code = Bi[:, 6]
+    prv = Bi[:, 7]
+    cell = Bi[:, 8:11]
+    hpos = Bi[:, 11]
     head = np.full(ncell, -1, dtype=np.int32)
-    nxt = np.empty(n, dtype=np.int32)
-    prv = np.empty(n, dtype=np.int32)
-    tcol = np.empty(n)
-    tcross = np.empty(n)
-    code = np.empty(n, dtype=np.int32)
-    partner = np.empty(n, dtype=np.int32)
-    pcount = np.empty(n)
     heap = np.empty((n, 2))
-    hpos = np.empty(n, dtype=np.int32)
     # Internally the particles are numbered in cell order (a counting sort), so that
     # neighbours sit close in memory whatever order the caller keeps them in.
     home = np.empty(n, dtype=np.int64)
@@ -353,7 +366,7 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
             c = int(math.floor(pos[i, d] / cs[d]))
             cell[k, d] = min(max(c, 0), nc[d] - 1)
         P[k, _T] = 0.0
-        P[k, _CNT] = 0.0
+        nxt[k, _CNT] = 0
         _cell_insert(head, nxt, prv, cell, nc, k)
     for i in range(n):
         _crossing(P, cell, nc, cs, box, walled, tcross, code, i, 0.0)
@@ -377,7 +390,7 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
         events += 1
         if tcol[i] <= tcross[i]:
             k = int(partner[i])
-            if P[k, _CNT] == pcount[i]:
+            if nxt[k, _CNT] == pcount[i]:
                 _move(P, i, now)
                 _move(P, k, now)
                 dx = P[k, 0] - P[i, 0]
@@ -412,8 +425,8 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
                 acc[VIRIAL] -= f * dx * dx
                 acc[VIRIAL + 1] -= f * dy * dy
                 acc[VIRIAL + 2] -= f * dz * dz
-                P[i, _CNT] += 1.0
-                P[k, _CNT] += 1.0
+                nxt[i, _CNT] += 1
+                nxt[k, _CNT] += 1
                 collisions += 1
                 # the pair just parted: it cannot meet again before another event
                 for a in range(2):
@@ -439,7 +452,7 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
             upper = (face & 1) == 1
             P[i, d] = box[d] - RADIUS if upper else RADIUS  # no drift through the wall
             hard_wall_bounce(V, i, d, upper, kind, wall_temperature, acc, rng)
-            P[i, _CNT] += 1.0
+            nxt[i, _CNT] += 1
             _crossing(P, cell, nc, cs, box, walled, tcross, code, i, now)
             tcol[i] = np.inf
             partner[i] = -1
@@ -463,7 +476,7 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
             _cell_insert(head, nxt, prv, cell, nc, i)
             _crossing(P, cell, nc, cs, box, walled, tcross, code, i, now)
             k = partner[i]
-            if k < 0 or P[k, _CNT] == pcount[i]:
+            if k < 0 or nxt[k, _CNT] == pcount[i]:
                 # candidate still good: only the cells that just became adjacent can
                 # hold an earlier collision (if the candidate goes stale later, the
                 # particle searches all 27 cells then, before anything is missed)
