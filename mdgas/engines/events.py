@@ -57,14 +57,6 @@ MIN_WALLED_EDGE = 2.0
 #: are wall hits at that face.
 WALL = 6
 
-# Columns of the hot per-particle array: position (3), velocity (3), local time, and
-# in the last 8 bytes two int32 (seen through an int32 view of the same rows, columns
-# 14 and 15): the next particle in the cell list and the event counter. One row is 64
-# bytes, aligned, so a neighbour costs one cache line.
-_T = 6
-_NXT = 14
-_CNT = 15
-
 
 def packing_fraction(density: float) -> float:
     """η = π ρ σ³ / 6."""
@@ -76,21 +68,43 @@ def accessible_volume(box: np.ndarray, walled) -> float:
     return float(np.prod([L - 2 * RADIUS if w else L for L, w in zip(box, walled)]))
 
 
+# One record per sphere for what a neighbour search reads: position and velocity at
+# the sphere's local time, the local time, the next sphere in its cell and its event
+# counter — 64 bytes, kept on one cache line. Records (not 2-D arrays) give the
+# compiler a constant row size, so an index costs a shift rather than a multiply.
+HOT = np.dtype([("r", "f8", 3), ("v", "f8", 3), ("t", "f8"), ("next", "i4"),
+                ("count", "i4")], align=True)
+# Event bookkeeping of a sphere: candidate collision and crossing times, the partner
+# and its counter then, the event code, the previous sphere in the cell and the cell.
+BOOK = np.dtype([("tcol", "f8"), ("tcross", "f8"), ("partner", "i4"), ("pcount", "i4"),
+                 ("code", "i4"), ("prev", "i4"), ("c", "i4", 3), ("pad", "i4")], align=True)
+# A calendar entry: event time and sphere.
+NODE = np.dtype([("t", "f8"), ("i", "i8")], align=True)
+_HOT_BYTES, _BOOK_BYTES, _NODE_BYTES = HOT.itemsize, BOOK.itemsize, NODE.itemsize
+
+
+@njit(cache=True, inline="always")
+def _aligned_bytes(nbytes):
+    """A byte buffer of ``nbytes`` starting on a 64-byte (cache line) boundary."""
+    buf = np.empty(nbytes + 64, dtype=np.uint8)
+    off = (64 - buf.ctypes.data % 64) % 64
+    return buf[off:off + nbytes]
+
+
 # Heap ---------------------------------------------------------------------------------
 
 @njit(cache=True, inline="always", error_model="numpy")
 def _sift_up(heap, hpos, k, t, i):
-    # heap[k] = (event time, particle as a float): one cache line holds both
     while k > 0:
         p = (k - 1) >> 1
-        if heap[p, 0] <= t:
+        if heap[p].t <= t:
             break
-        heap[k, 0] = heap[p, 0]
-        heap[k, 1] = heap[p, 1]
-        hpos[int(heap[k, 1])] = k
+        heap[k].t = heap[p].t
+        heap[k].i = heap[p].i
+        hpos[heap[k].i] = k
         k = p
-    heap[k, 0] = t
-    heap[k, 1] = i
+    heap[k].t = t
+    heap[k].i = i
     hpos[i] = k
 
 
@@ -101,24 +115,24 @@ def _sift_down(heap, hpos, k, t, i):
         c = 2 * k + 1
         if c >= n:
             break
-        if c + 1 < n and heap[c + 1, 0] < heap[c, 0]:
+        if c + 1 < n and heap[c + 1].t < heap[c].t:
             c += 1
-        if heap[c, 0] >= t:
+        if heap[c].t >= t:
             break
-        heap[k, 0] = heap[c, 0]
-        heap[k, 1] = heap[c, 1]
-        hpos[int(heap[k, 1])] = k
+        heap[k].t = heap[c].t
+        heap[k].i = heap[c].i
+        hpos[heap[k].i] = k
         k = c
-    heap[k, 0] = t
-    heap[k, 1] = i
+    heap[k].t = t
+    heap[k].i = i
     hpos[i] = k
 
 
 @njit(cache=True, inline="always", error_model="numpy")
-def _reschedule(heap, hpos, tcol, tcross, i):
-    t = tcol[i] if tcol[i] < tcross[i] else tcross[i]
+def _reschedule(heap, hpos, B, i):
+    t = B[i].tcol if B[i].tcol < B[i].tcross else B[i].tcross
     k = hpos[i]
-    if k > 0 and t < heap[(k - 1) >> 1, 0]:
+    if k > 0 and t < heap[(k - 1) >> 1].t:
         _sift_up(heap, hpos, k, t, i)
     else:
         _sift_down(heap, hpos, k, t, i)
@@ -127,63 +141,66 @@ def _reschedule(heap, hpos, tcol, tcross, i):
 # Cells --------------------------------------------------------------------------------
 
 @njit(cache=True, inline="always", error_model="numpy")
-def _cell_of(cell, nc, i):
-    return (cell[i, 2] * nc[1] + cell[i, 1]) * nc[0] + cell[i, 0]
+def _cell_of(B, nc, i):
+    return (B[i].c[2] * nc[1] + B[i].c[1]) * nc[0] + B[i].c[0]
 
 
 @njit(cache=True, inline="always", error_model="numpy")
-def _cell_insert(head, nxt, prv, cell, nc, i):
-    c = _cell_of(cell, nc, i)
+def _cell_insert(head, P, B, nc, i):
+    c = _cell_of(B, nc, i)
     h = head[c]
-    nxt[i, _NXT] = h
-    prv[i] = -1
+    P[i].next = h
+    B[i].prev = -1
     if h >= 0:
-        prv[h] = i
+        B[h].prev = i
     head[c] = i
 
 
 @njit(cache=True, inline="always", error_model="numpy")
-def _cell_remove(head, nxt, prv, cell, nc, i):
-    n, p = nxt[i, _NXT], prv[i]
+def _cell_remove(head, P, B, nc, i):
+    n, p = P[i].next, B[i].prev
     if p >= 0:
-        nxt[p, _NXT] = n
+        P[p].next = n
     else:
-        head[_cell_of(cell, nc, i)] = n
+        head[_cell_of(B, nc, i)] = n
     if n >= 0:
-        prv[n] = p
+        B[n].prev = p
 
 
 # Prediction ---------------------------------------------------------------------------
 
 @njit(cache=True, inline="always", error_model="numpy")
 def _move(P, i, t):
-    dt = t - P[i, _T]
-    P[i, 0] += P[i, 3] * dt
-    P[i, 1] += P[i, 4] * dt
-    P[i, 2] += P[i, 5] * dt
-    P[i, _T] = t
+    p = P[i]
+    dt = t - p.t
+    p.r[0] += p.v[0] * dt
+    p.r[1] += p.v[1] * dt
+    p.r[2] += p.v[2] * dt
+    p.t = t
 
 
 @njit(cache=True, inline="always", error_model="numpy")
-def _crossing(P, cell, nc, cs, box, walled, tcross, code, i, now):
+def _crossing(P, B, nc, cs, box, walled, i, now):
     """Next cell crossing or wall hit of ``i`` (up to date at ``now``)."""
+    p = P[i]
+    b = B[i]
     best = np.inf
     which = -1
     for d in range(3):
-        v = P[i, 3 + d]
+        v = p.v[d]
         if v > 0.0:
-            if walled[d] and cell[i, d] == nc[d] - 1:
-                dt = (box[d] - RADIUS - P[i, d]) / v
+            if walled[d] and b.c[d] == nc[d] - 1:
+                dt = (box[d] - RADIUS - p.r[d]) / v
                 c = WALL + 2 * d + 1
             else:
-                dt = ((cell[i, d] + 1) * cs[d] - P[i, d]) / v
+                dt = ((b.c[d] + 1) * cs[d] - p.r[d]) / v
                 c = 2 * d + 1
         elif v < 0.0:
-            if walled[d] and cell[i, d] == 0:
-                dt = (RADIUS - P[i, d]) / v
+            if walled[d] and b.c[d] == 0:
+                dt = (RADIUS - p.r[d]) / v
                 c = WALL + 2 * d
             else:
-                dt = (cell[i, d] * cs[d] - P[i, d]) / v
+                dt = (b.c[d] * cs[d] - p.r[d]) / v
                 c = 2 * d
         else:
             continue
@@ -192,22 +209,23 @@ def _crossing(P, cell, nc, cs, box, walled, tcross, code, i, now):
             which = c
     if best < 0.0:
         best = 0.0  # round-off: already on the face
-    tcross[i] = now + best
-    code[i] = which
+    b.tcross = now + best
+    b.code = which
 
 
 @njit(cache=True, inline="always", error_model="numpy")
-def _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
-          layer_axis, layer_side, skip):
+def _scan(P, B, head, nc, box, walled, i, now, layer_axis, layer_side, skip):
     """Look for a collision of ``i`` earlier than its candidate in the neighbour cells.
 
     ``layer_axis`` < 0 searches all 27 cells; otherwise only the layer of 9 at offset
     ``layer_side`` along that axis (the cells that just became adjacent).
     """
-    best = tcol[i]
+    bi = B[i]
+    best = bi.tcol
     bestj = -1
-    xi, yi, zi = P[i, 0], P[i, 1], P[i, 2]
-    vxi, vyi, vzi = P[i, 3], P[i, 4], P[i, 5]
+    pi = P[i]
+    xi, yi, zi = pi.r[0], pi.r[1], pi.r[2]
+    vxi, vyi, vzi = pi.v[0], pi.v[1], pi.v[2]
     lo0, hi0, lo1, hi1, lo2, hi2 = -1, 1, -1, 1, -1, 1
     if layer_axis == 0:
         lo0 = hi0 = layer_side
@@ -216,7 +234,7 @@ def _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
     elif layer_axis == 2:
         lo2 = hi2 = layer_side
     for oz in range(lo2, hi2 + 1):
-        cz = cell[i, 2] + oz
+        cz = bi.c[2] + oz
         sz = 0.0
         if cz < 0:
             if walled[2]:
@@ -229,7 +247,7 @@ def _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
             cz -= nc[2]
             sz = box[2]
         for oy in range(lo1, hi1 + 1):
-            cy = cell[i, 1] + oy
+            cy = bi.c[1] + oy
             sy = 0.0
             if cy < 0:
                 if walled[1]:
@@ -242,7 +260,7 @@ def _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
                 cy -= nc[1]
                 sy = box[1]
             for ox in range(lo0, hi0 + 1):
-                cx = cell[i, 0] + ox
+                cx = bi.c[0] + ox
                 sx = 0.0
                 if cx < 0:
                     if walled[0]:
@@ -258,14 +276,15 @@ def _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
                 qx, qy, qz = xi - sx, yi - sy, zi - sz
                 j = head[(cz * nc[1] + cy) * nc[0] + cx]
                 while j >= 0:
+                    pj = P[j]
                     if j != i and j != skip:
-                        dt = now - P[j, _T]
-                        dx = P[j, 0] + P[j, 3] * dt - qx
-                        dy = P[j, 1] + P[j, 4] * dt - qy
-                        dz = P[j, 2] + P[j, 5] * dt - qz
-                        ux = P[j, 3] - vxi
-                        uy = P[j, 4] - vyi
-                        uz = P[j, 5] - vzi
+                        dt = now - pj.t
+                        dx = pj.r[0] + pj.v[0] * dt - qx
+                        dy = pj.r[1] + pj.v[1] * dt - qy
+                        dz = pj.r[2] + pj.v[2] * dt - qz
+                        ux = pj.v[0] - vxi
+                        uy = pj.v[1] - vyi
+                        uz = pj.v[2] - vzi
                         b = dx * ux + dy * uy + dz * uz
                         if b < 0.0:  # approaching
                             dr2m1 = dx * dx + dy * dy + dz * dz - 1.0
@@ -280,11 +299,20 @@ def _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
                                 if now + tc < best:
                                     best = now + tc
                                     bestj = j
-                    j = nxt[j, _NXT]
+                    j = pj.next
     if bestj >= 0:
-        tcol[i] = best
-        partner[i] = bestj
-        pcount[i] = nxt[bestj, _CNT]
+        bi.tcol = best
+        bi.partner = bestj
+        bi.pcount = P[bestj].count
+
+
+@njit(cache=True, inline="always", error_model="numpy")
+def _predict(P, B, head, nc, cs, box, walled, i, now, skip):
+    """Full prediction for ``i`` (up to date at ``now``) on a new trajectory."""
+    _crossing(P, B, nc, cs, box, walled, i, now)
+    B[i].tcol = np.inf
+    B[i].partner = -1
+    _scan(P, B, head, nc, box, walled, i, now, -1, 0, skip)
 
 
 # The chunk ----------------------------------------------------------------------------
@@ -319,28 +347,11 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
     n = pos.shape[0]
     nc, cs = cell_grid(box, walled, n)
     ncell = nc[0] * nc[1] * nc[2]
-    # rows of 64 bytes start on a cache-line boundary, so a neighbour is one line
-    buf = np.empty(n * 8 + 8)
-    off = ((64 - buf.ctypes.data % 64) % 64) // 8
-    P = buf[off:off + n * 8].reshape((n, 8))
-    nxt = buf.view(np.int32)[2 * off:2 * off + n * 16].reshape((n, 16))
-    # the bookkeeping of a particle shares one aligned 64-byte row too: collision and
-    # crossing times (float64), then as int32 partner, its counter then, event code,
-    # previous particle in the cell list, cell (3) and heap position
-    bbuf = np.empty(n * 8 + 8)
-    boff = ((64 - bbuf.ctypes.data % 64) % 64) // 8
-    B = bbuf[boff:boff + n * 8].reshape((n, 8))
-    Bi = bbuf.view(np.int32)[2 * boff:2 * boff + n * 16].reshape((n, 16))
-    tcol = B[:, 0]
-    tcross = B[:, 1]
-    partner = Bi[:, 4]
-    pcount = Bi[:, 5]
-    code = Bi[:, 6]
-    prv = Bi[:, 7]
-    cell = Bi[:, 8:11]
-    hpos = Bi[:, 11]
+    P = _aligned_bytes(n * _HOT_BYTES).view(HOT)
+    B = _aligned_bytes(n * _BOOK_BYTES).view(BOOK)
+    heap = _aligned_bytes(n * _NODE_BYTES).view(NODE)
+    hpos = np.empty(n, dtype=np.int32)  # its own dense array: sifts touch it at random
     head = np.full(ncell, -1, dtype=np.int32)
-    heap = np.empty((n, 2))
     # Internally the particles are numbered in cell order (a counting sort), so that
     # neighbours sit close in memory whatever order the caller keeps them in.
     home = np.empty(n, dtype=np.int64)
@@ -361,41 +372,41 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
     for k in range(n):
         i = order[k]
         for d in range(3):
-            P[k, d] = pos[i, d]
-            P[k, 3 + d] = vel[i, d]
+            P[k].r[d] = pos[i, d]
+            P[k].v[d] = vel[i, d]
             c = int(math.floor(pos[i, d] / cs[d]))
-            cell[k, d] = min(max(c, 0), nc[d] - 1)
-        P[k, _T] = 0.0
-        nxt[k, _CNT] = 0
-        _cell_insert(head, nxt, prv, cell, nc, k)
+            B[k].c[d] = min(max(c, 0), nc[d] - 1)
+        P[k].t = 0.0
+        P[k].count = 0
+        _cell_insert(head, P, B, nc, k)
     for i in range(n):
-        _crossing(P, cell, nc, cs, box, walled, tcross, code, i, 0.0)
-        tcol[i] = np.inf
-        partner[i] = -1
-        _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, 0.0, -1, 0, -1)
-        heap[i, 0] = tcol[i] if tcol[i] < tcross[i] else tcross[i]
-        heap[i, 1] = i
+        _predict(P, B, head, nc, cs, box, walled, i, 0.0, -1)
+        heap[i].t = B[i].tcol if B[i].tcol < B[i].tcross else B[i].tcross
+        heap[i].i = i
         hpos[i] = i
     for k in range(n // 2 - 1, -1, -1):
-        _sift_down(heap, hpos, k, heap[k, 0], int(heap[k, 1]))
+        _sift_down(heap, hpos, k, heap[k].t, heap[k].i)
 
-    V = P[:, 3:6]  # velocity view for the shared wall rules
+    vw = np.empty((1, 3))  # a sphere's velocity for the shared wall rules
     collisions = 0
     events = 0
     while n > 0:
-        i = int(heap[0, 1])
-        now = heap[0, 0]
+        i = heap[0].i
+        now = heap[0].t
         if now > duration:
             break
         events += 1
-        if tcol[i] <= tcross[i]:
-            k = int(partner[i])
-            if nxt[k, _CNT] == pcount[i]:
+        bi = B[i]
+        if bi.tcol <= bi.tcross:
+            k = bi.partner
+            if P[k].count == bi.pcount:
                 _move(P, i, now)
                 _move(P, k, now)
-                dx = P[k, 0] - P[i, 0]
-                dy = P[k, 1] - P[i, 1]
-                dz = P[k, 2] - P[i, 2]
+                pi = P[i]
+                pk = P[k]
+                dx = pk.r[0] - pi.r[0]
+                dy = pk.r[1] - pi.r[1]
+                dz = pk.r[2] - pi.r[2]
                 if not walled[0]:
                     if dx > 0.5 * box[0]:
                         dx -= box[0]
@@ -411,95 +422,90 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
                         dz -= box[2]
                     elif dz < -0.5 * box[2]:
                         dz += box[2]
-                b = (dx * (P[k, 3] - P[i, 3]) + dy * (P[k, 4] - P[i, 4])
-                     + dz * (P[k, 5] - P[i, 5]))
+                b = (dx * (pk.v[0] - pi.v[0]) + dy * (pk.v[1] - pi.v[1])
+                     + dz * (pk.v[2] - pi.v[2]))
                 f = b / (dx * dx + dy * dy + dz * dz)
                 # exchange of the normal components; Δp_i = f·(r_k - r_i)
-                P[i, 3] += f * dx
-                P[i, 4] += f * dy
-                P[i, 5] += f * dz
-                P[k, 3] -= f * dx
-                P[k, 4] -= f * dy
-                P[k, 5] -= f * dz
+                pi.v[0] += f * dx
+                pi.v[1] += f * dy
+                pi.v[2] += f * dz
+                pk.v[0] -= f * dx
+                pk.v[1] -= f * dy
+                pk.v[2] -= f * dz
                 # r_ik,a Δp_i,a = -(r_k - r_i)_a f (r_k - r_i)_a
-                acc[VIRIAL] -= f * dx * dx
+                acc[VIRIAL + 0] -= f * dx * dx
                 acc[VIRIAL + 1] -= f * dy * dy
                 acc[VIRIAL + 2] -= f * dz * dz
-                nxt[i, _CNT] += 1
-                nxt[k, _CNT] += 1
+                pi.count += 1
+                pk.count += 1
                 collisions += 1
                 # the pair just parted: it cannot meet again before another event
-                for a in range(2):
-                    me, other = (i, k) if a == 0 else (k, i)
-                    _crossing(P, cell, nc, cs, box, walled, tcross, code, me, now)
-                    tcol[me] = np.inf
-                    partner[me] = -1
-                    _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, me, now,
-                          -1, 0, other)
-                    _reschedule(heap, hpos, tcol, tcross, me)
+                _predict(P, B, head, nc, cs, box, walled, i, now, k)
+                _reschedule(heap, hpos, B, i)
+                _predict(P, B, head, nc, cs, box, walled, k, now, i)
+                _reschedule(heap, hpos, B, k)
             else:
                 # stale candidate (partner changed course); the crossing still holds
                 _move(P, i, now)
-                tcol[i] = np.inf
-                partner[i] = -1
-                _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
-                      -1, 0, -1)
-                _reschedule(heap, hpos, tcol, tcross, i)
-        elif code[i] >= WALL:
+                bi.tcol = np.inf
+                bi.partner = -1
+                _scan(P, B, head, nc, box, walled, i, now, -1, 0, -1)
+                _reschedule(heap, hpos, B, i)
+        elif bi.code >= WALL:
             _move(P, i, now)
-            face = code[i] - WALL
+            face = bi.code - WALL
             d = face >> 1
             upper = (face & 1) == 1
-            P[i, d] = box[d] - RADIUS if upper else RADIUS  # no drift through the wall
-            hard_wall_bounce(V, i, d, upper, kind, wall_temperature, acc, rng)
-            nxt[i, _CNT] += 1
-            _crossing(P, cell, nc, cs, box, walled, tcross, code, i, now)
-            tcol[i] = np.inf
-            partner[i] = -1
-            _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now, -1, 0, -1)
-            _reschedule(heap, hpos, tcol, tcross, i)
+            pi = P[i]
+            pi.r[d] = box[d] - RADIUS if upper else RADIUS  # no drift through the wall
+            for a in range(3):
+                vw[0, a] = pi.v[a]
+            hard_wall_bounce(vw, 0, d, upper, kind, wall_temperature, acc, rng)
+            for a in range(3):
+                pi.v[a] = vw[0, a]
+            pi.count += 1
+            _predict(P, B, head, nc, cs, box, walled, i, now, -1)
+            _reschedule(heap, hpos, B, i)
         else:
             _move(P, i, now)
-            d = code[i] >> 1
-            up = code[i] & 1
-            _cell_remove(head, nxt, prv, cell, nc, i)
+            d = bi.code >> 1
+            up = bi.code & 1
+            _cell_remove(head, P, B, nc, i)
             if up:
-                cell[i, d] += 1
-                if cell[i, d] == nc[d]:
-                    cell[i, d] = 0
-                    P[i, d] -= box[d]
+                bi.c[d] += 1
+                if bi.c[d] == nc[d]:
+                    bi.c[d] = 0
+                    P[i].r[d] -= box[d]
             else:
-                cell[i, d] -= 1
-                if cell[i, d] < 0:
-                    cell[i, d] = nc[d] - 1
-                    P[i, d] += box[d]
-            _cell_insert(head, nxt, prv, cell, nc, i)
-            _crossing(P, cell, nc, cs, box, walled, tcross, code, i, now)
-            k = partner[i]
-            if k < 0 or nxt[k, _CNT] == pcount[i]:
+                bi.c[d] -= 1
+                if bi.c[d] < 0:
+                    bi.c[d] = nc[d] - 1
+                    P[i].r[d] += box[d]
+            _cell_insert(head, P, B, nc, i)
+            _crossing(P, B, nc, cs, box, walled, i, now)
+            k = bi.partner
+            if k < 0 or P[k].count == bi.pcount:
                 # candidate still good: only the cells that just became adjacent can
                 # hold an earlier collision (if the candidate goes stale later, the
                 # particle searches all 27 cells then, before anything is missed)
-                _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
-                      d, 1 if up else -1, -1)
+                _scan(P, B, head, nc, box, walled, i, now, d, 1 if up else -1, -1)
             else:
-                tcol[i] = np.inf
-                partner[i] = -1
-                _scan(P, head, nxt, cell, nc, box, walled, tcol, partner, pcount, i, now,
-                      -1, 0, -1)
-            _reschedule(heap, hpos, tcol, tcross, i)
+                bi.tcol = np.inf
+                bi.partner = -1
+                _scan(P, B, head, nc, box, walled, i, now, -1, 0, -1)
+            _reschedule(heap, hpos, B, i)
 
     for k in range(n):
         _move(P, k, duration)
         i = order[k]
         for d in range(3):
-            x = P[k, d]
+            x = P[k].r[d]
             if not walled[d]:
                 x -= box[d] * math.floor(x / box[d])
                 if x >= box[d]:
                     x = 0.0
             pos[i, d] = x
-            vel[i, d] = P[k, 3 + d]
+            vel[i, d] = P[k].v[d]
     acc[COLLISIONS] += collisions
     acc[STEPS] += events
     return collisions
