@@ -32,6 +32,7 @@ from numba import njit
 from ..errors import ConfigError
 from ..observe import COLLISIONS, STEPS, VIRIAL
 from . import Engine, register
+from .prefetch import prefetch
 from .rng import seed_state, uniform
 from .start import lattice_positions, maxwell_boltzmann
 from .walls import WALL_CODES, hard_wall_bounce
@@ -405,6 +406,17 @@ def _events(P, B, heap, hpos, head, nc, cs, box, walled, kind, wall_temperature,
         if now > duration:
             break
         events += 1
+        # the next event is most likely the earliest child of the root: start loading
+        # its sphere while this event is handled
+        if n > 8:
+            m = 1
+            tm = heap[1].t
+            for q in range(2, 9):
+                if heap[q].t < tm:
+                    m = q
+                    tm = heap[q].t
+            prefetch(B, heap[m].i)
+            prefetch(P, heap[m].i)
         bi = B[i]
         if bi.tcol <= bi.tcross:
             k = bi.partner
