@@ -190,7 +190,7 @@ def test_grazing_and_touching_pairs_do_not_overlap():
     acc = observe.new_accumulator()
     rng = np.zeros(4, dtype=np.uint64) + np.uint64(1)
     for _ in range(80):  # 4 τ: the grazing pair meets at t = 3 τ
-        hs_chunk(pos, vel, box, walled, 0, 0.0, 0.05, acc, rng)
+        hs_chunk(pos, vel, box, walled, 0, 0.0, 0.05, acc, rng, np.empty(0, np.uint8))
         assert brute_min_distance(pos, box, walled) >= 1.0 - 1e-9
     assert acc[observe.COLLISIONS] >= 2
     assert np.allclose((vel ** 2).sum(), 4.0, rtol=1e-14)

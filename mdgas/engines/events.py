@@ -85,11 +85,21 @@ _HOT_BYTES, _BOOK_BYTES, _NODE_BYTES = HOT.itemsize, BOOK.itemsize, NODE.itemsiz
 
 
 @njit(cache=True, inline="always")
-def _aligned_bytes(nbytes):
-    """A byte buffer of ``nbytes`` starting on a 64-byte (cache line) boundary."""
-    buf = np.empty(nbytes + 64, dtype=np.uint8)
-    off = (64 - buf.ctypes.data % 64) % 64
-    return buf[off:off + nbytes]
+def _carve(work, at, nbytes):
+    """``nbytes`` of the byte buffer ``work`` from offset ``at`` on, moved up to the next
+    64-byte (cache line) boundary; returns the piece and the offset after it."""
+    start = at + (64 - (work.ctypes.data + at) % 64) % 64
+    return work[start:start + nbytes], start + nbytes
+
+
+@njit(cache=True)
+def workspace_bytes(box, walled, n):
+    """Bytes of scratch memory :func:`hs_chunk` uses for ``n`` spheres in ``box``."""
+    nc, cs = cell_grid(box, walled, n)
+    ncell = nc[0] * nc[1] * nc[2]
+    per_sphere = _HOT_BYTES + _BOOK_BYTES + _NODE_BYTES + 4 + 2 * 8
+    # and the wall-rule velocity (24 bytes), and up to 63 bytes of alignment per piece
+    return n * per_sphere + 3 * _NODE_BYTES + ncell * 4 + (ncell + 1) * 8 + 24 + 9 * 64
 
 
 # Heap ---------------------------------------------------------------------------------
@@ -519,27 +529,45 @@ def _events(P, B, heap, hpos, head, nc, cs, box, walled, kind, wall_temperature,
 
 
 @njit(cache=True, error_model="numpy")
-def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
+def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng, work):
     """Advance hard spheres by ``duration`` (τ) exactly; update ``pos``/``vel`` in place.
 
     Adds to ``acc``: wall impulses and hits (through ``hard_wall_bounce``), the pair
     collision virial Σ r_ij,a Δp_i,a per axis, the number of pair collisions, and the
     number of events of every kind (STEPS). Returns the number of pair collisions.
+
+    ``work`` is a uint8 scratch buffer of at least ``workspace_bytes`` (any content; a
+    smaller one, e.g. empty, makes the call allocate its own). Kept by the caller from
+    chunk to chunk it spares the page faults of fresh memory every chunk, and numpy
+    gives large buffers transparent huge pages where the system allows, which cuts
+    TLB misses in the random accesses of the event loop.
     """
     n = pos.shape[0]
     nc, cs = cell_grid(box, walled, n)
     ncell = nc[0] * nc[1] * nc[2]
-    P = _aligned_bytes(n * _HOT_BYTES).view(HOT)
-    B = _aligned_bytes(n * _BOOK_BYTES).view(BOOK)
+    if work.shape[0] < workspace_bytes(box, walled, n):
+        work = np.empty(workspace_bytes(box, walled, n), dtype=np.uint8)
+    piece, at = _carve(work, 0, n * _HOT_BYTES)
+    P = piece.view(HOT)
+    piece, at = _carve(work, at, n * _BOOK_BYTES)
+    B = piece.view(BOOK)
     # entry 0 sits 3 entries into a cache line, so that every family of children
     # (8k+1 .. 8k+8) starts on a line
-    heap = _aligned_bytes((n + 3) * _NODE_BYTES).view(NODE)[3:]
-    hpos = np.empty(n, dtype=np.int32)  # its own dense array: sifts touch it at random
-    head = np.full(ncell, -1, dtype=np.int32)
+    piece, at = _carve(work, at, (n + 3) * _NODE_BYTES)
+    heap = piece.view(NODE)[3:]
+    # its own dense array: sifts touch it at random
+    piece, at = _carve(work, at, n * 4)
+    hpos = piece.view(np.int32)
+    piece, at = _carve(work, at, ncell * 4)
+    head = piece.view(np.int32)
+    head[:] = -1
     # Internally the particles are numbered in cell order (a counting sort), so that
     # neighbours sit close in memory whatever order the caller keeps them in.
-    home = np.empty(n, dtype=np.int64)
-    fill = np.zeros(ncell + 1, dtype=np.int64)
+    piece, at = _carve(work, at, n * 8)
+    home = piece.view(np.int64)
+    piece, at = _carve(work, at, (ncell + 1) * 8)
+    fill = piece.view(np.int64)
+    fill[:] = 0
     for i in range(n):
         c3 = 0
         for d in range(2, -1, -1):
@@ -549,7 +577,8 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
         fill[c3 + 1] += 1
     for c in range(ncell):
         fill[c + 1] += fill[c]
-    order = np.empty(n, dtype=np.int64)  # internal number -> caller's number
+    piece, at = _carve(work, at, n * 8)
+    order = piece.view(np.int64)  # internal number -> caller's number
     for i in range(n):
         order[fill[home[i]]] = i
         fill[home[i]] += 1
@@ -571,7 +600,8 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng):
     for k in range((n - 2) // 8, -1, -1):
         _sift_down(heap, hpos, k, heap[k].t, heap[k].i)
 
-    vw = np.empty((1, 3))  # a sphere's velocity for the shared wall rules
+    piece, at = _carve(work, at, 3 * 8)
+    vw = piece.view(np.float64).reshape((1, 3))  # a sphere's velocity for the wall rules
     collisions, events = _events(P, B, heap, hpos, head, nc, cs, box, walled, kind,
                                  wall_temperature, duration, acc, rng, vw)
 
@@ -748,6 +778,8 @@ class HardSpheres(Engine):
     """Identical hard spheres (σ = 1, m = 1): exact event-driven dynamics."""
 
     name = "hard-sphere"
+    #: hs_chunk's scratch memory, kept from chunk to chunk (allocated on first use)
+    _work: np.ndarray | None = None
 
     @classmethod
     def validate(cls, settings) -> None:
@@ -815,8 +847,12 @@ class HardSpheres(Engine):
         # No thermostat: collisions conserve kinetic energy exactly, so the temperature
         # set by the start velocities stays (only thermal walls exchange heat).
         c = self.settings.container
+        n = len(state["positions"])
+        if self._work is None:
+            self._work = np.empty(workspace_bytes(self.box, self.walled, n), dtype=np.uint8)
         hs_chunk(state["positions"], state["velocities"], self.box, self.walled,
-                 WALL_CODES[c.wall], c.wall_temperature or 0.0, duration, acc, state["rng"])
+                 WALL_CODES[c.wall], c.wall_temperature or 0.0, duration, acc, state["rng"],
+                 self._work)
         state["time"][0] += duration
 
     def health(self, state) -> str:
@@ -847,4 +883,7 @@ class HardSpheres(Engine):
         return 1.5e-6 * per_tau + 1.5e-6 * n / s.output.sample_every
 
     def memory_bytes(self) -> int:
-        return 250 * self.settings.gas.particles
+        # the kernel's scratch buffer, plus positions, velocities and the copies the
+        # caller's arrays get passed through (about 10 doubles per sphere)
+        n = self.settings.gas.particles
+        return int(workspace_bytes(self.box, self.walled, n)) + 80 * n
