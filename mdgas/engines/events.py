@@ -266,6 +266,21 @@ def _meet(pj, now, qx, qy, qz, vx, vy, vz):
 
 
 @njit(cache=True, inline="always", error_model="numpy")
+def _walk_cell(P, j, i, skip, now, qx, qy, qz, vx, vy, vz, best, bestj):
+    """Go down one cell's list from sphere ``j`` for a meeting with sphere ``i`` (at q
+    with velocity v, ``skip`` left out) before ``best``; returns the new (best, bestj)."""
+    while j >= 0:
+        pj = P[j]
+        if j != i and j != skip:
+            t = _meet(pj, now, qx, qy, qz, vx, vy, vz)
+            if t < best:
+                best = t
+                bestj = j
+        j = pj.next
+    return best, bestj
+
+
+@njit(cache=True, inline="always", error_model="numpy")
 def _scan(P, B, head, nc, box, walled, i, now, layer_axis, layer_side, skip):
     """Look for a collision of ``i`` earlier than its candidate in the neighbour cells.
 
@@ -290,77 +305,59 @@ def _scan(P, B, head, nc, box, walled, i, now, layer_axis, layer_side, skip):
             for oy in range(-1, 2):
                 row = centre + oz * s2 + oy * s1
                 for ox in range(-1, 2):
-                    j = head[row + ox]
-                    while j >= 0:
-                        pj = P[j]
-                        if j != i and j != skip:
-                            t = _meet(pj, now, xi, yi, zi, vxi, vyi, vzi)
-                            if t < best:
-                                best = t
-                                bestj = j
-                        j = pj.next
-        if bestj >= 0:
-            bi.tcol = best
-            bi.partner = bestj
-            bi.pcount = P[bestj].count
-        return
-    lo0, hi0, lo1, hi1, lo2, hi2 = -1, 1, -1, 1, -1, 1
-    if layer_axis == 0:
-        lo0 = hi0 = layer_side
-    elif layer_axis == 1:
-        lo1 = hi1 = layer_side
-    elif layer_axis == 2:
-        lo2 = hi2 = layer_side
-    for oz in range(lo2, hi2 + 1):
-        cz = bi.c[2] + oz
-        sz = 0.0
-        if cz < 0:
-            if walled[2]:
-                continue
-            cz += nc[2]
-            sz = -box[2]
-        elif cz >= nc[2]:
-            if walled[2]:
-                continue
-            cz -= nc[2]
-            sz = box[2]
-        for oy in range(lo1, hi1 + 1):
-            cy = bi.c[1] + oy
-            sy = 0.0
-            if cy < 0:
-                if walled[1]:
+                    best, bestj = _walk_cell(P, head[row + ox], i, skip, now, xi, yi, zi,
+                                             vxi, vyi, vzi, best, bestj)
+    else:
+        lo0, hi0, lo1, hi1, lo2, hi2 = -1, 1, -1, 1, -1, 1
+        if layer_axis == 0:
+            lo0 = hi0 = layer_side
+        elif layer_axis == 1:
+            lo1 = hi1 = layer_side
+        elif layer_axis == 2:
+            lo2 = hi2 = layer_side
+        for oz in range(lo2, hi2 + 1):
+            cz = c2 + oz
+            sz = 0.0
+            if cz < 0:
+                if walled[2]:
                     continue
-                cy += nc[1]
-                sy = -box[1]
-            elif cy >= nc[1]:
-                if walled[1]:
+                cz += nc[2]
+                sz = -box[2]
+            elif cz >= nc[2]:
+                if walled[2]:
                     continue
-                cy -= nc[1]
-                sy = box[1]
-            for ox in range(lo0, hi0 + 1):
-                cx = bi.c[0] + ox
-                sx = 0.0
-                if cx < 0:
-                    if walled[0]:
+                cz -= nc[2]
+                sz = box[2]
+            for oy in range(lo1, hi1 + 1):
+                cy = c1 + oy
+                sy = 0.0
+                if cy < 0:
+                    if walled[1]:
                         continue
-                    cx += nc[0]
-                    sx = -box[0]
-                elif cx >= nc[0]:
-                    if walled[0]:
+                    cy += nc[1]
+                    sy = -box[1]
+                elif cy >= nc[1]:
+                    if walled[1]:
                         continue
-                    cx -= nc[0]
-                    sx = box[0]
-                # i's image next to the neighbour cell as stored
-                qx, qy, qz = xi - sx, yi - sy, zi - sz
-                j = head[(cz * nc[1] + cy) * nc[0] + cx]
-                while j >= 0:
-                    pj = P[j]
-                    if j != i and j != skip:
-                        t = _meet(pj, now, qx, qy, qz, vxi, vyi, vzi)
-                        if t < best:
-                            best = t
-                            bestj = j
-                    j = pj.next
+                    cy -= nc[1]
+                    sy = box[1]
+                for ox in range(lo0, hi0 + 1):
+                    cx = c0 + ox
+                    sx = 0.0
+                    if cx < 0:
+                        if walled[0]:
+                            continue
+                        cx += nc[0]
+                        sx = -box[0]
+                    elif cx >= nc[0]:
+                        if walled[0]:
+                            continue
+                        cx -= nc[0]
+                        sx = box[0]
+                    # i's image next to the neighbour cell as stored
+                    best, bestj = _walk_cell(P, head[(cz * nc[1] + cy) * nc[0] + cx], i,
+                                             skip, now, xi - sx, yi - sy, zi - sz,
+                                             vxi, vyi, vzi, best, bestj)
     if bestj >= 0:
         bi.tcol = best
         bi.partner = bestj
