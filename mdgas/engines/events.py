@@ -542,8 +542,9 @@ def hs_chunk(pos, vel, box, walled, kind, wall_temperature, duration, acc, rng, 
     n = pos.shape[0]
     nc, cs = cell_grid(box, walled, n)
     ncell = nc[0] * nc[1] * nc[2]
-    if work.shape[0] < workspace_bytes(box, walled, n):
-        work = np.empty(workspace_bytes(box, walled, n), dtype=np.uint8)
+    need = workspace_bytes(box, walled, n)
+    if work.shape[0] < need:
+        work = np.empty(need, dtype=np.uint8)
     piece, at = _carve(work, 0, n * _HOT_BYTES)
     P = piece.view(HOT)
     piece, at = _carve(work, at, n * _BOOK_BYTES)
