@@ -1,10 +1,11 @@
 """Cell lists, cell sorting and Verlet neighbour lists shared by the engines.
 
 Geometry: the box is [0, L_a] per axis; an axis is periodic (minimum image) or walled
-(closed, no images). Periodic images are handled branch-free with two per-axis arrays,
-``lp`` (L on periodic axes, 0 on walled ones) and ``ilp`` (1/L or 0), so that
-``d -= lp * rint(d * ilp)`` is the minimum image on periodic axes and a no-op on
-walled ones. Lengths in σ.
+(closed, no images). Periodic images are handled branch-free with the per-axis array
+``lp`` (L on periodic axes, 0 on walled ones; ``ilp`` holds 1/L or 0): positions are
+kept wrapped into [0, L), so a difference d of two of them has |d| < L and
+:func:`min_image` (one compare-and-shift each way) is the minimum image on periodic
+axes and a no-op on walled ones. Lengths in σ.
 
 Cells are at least ``rlist / reach`` wide, so every neighbour within ``rlist`` lies
 within ``reach`` cells along each axis (27 cells for reach 1; reach 2 scans 125 smaller
@@ -25,6 +26,20 @@ import math
 
 import numpy as np
 from numba import njit, prange
+
+
+@njit(cache=True, inline="always", error_model="numpy")
+def min_image(d, L, half):
+    """Minimum image of the difference d (|d| < L) of two wrapped coordinates on an axis
+    of length L (``half`` = L/2; L = 0 on a walled axis leaves d as it is).
+
+    Compare-and-shift instead of d - L·rint(d/L): the rounding instruction shares an
+    execution port with the division in the force loop, which made that loop about
+    1.1 times slower (measured on AVX-512 and AVX2 machines, same forces bit for bit).
+    """
+    d = d - L if d > half else d
+    d = d + L if d < -half else d
+    return d
 
 
 def image_arrays(box: np.ndarray, walled) -> tuple[np.ndarray, np.ndarray]:
@@ -140,7 +155,7 @@ def _z_runs(c, n, periodic, reach, lo, hi):
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
-def build_neighbour_list(pos, lp, ilp, ncell, cell_start, rlist2, half, nbr, count, reach=1):
+def build_neighbour_list(pos, lp, ncell, cell_start, rlist2, half, nbr, count, reach=1):
     """Fill ``nbr``/``count`` with the pairs closer than sqrt(rlist2), from cell-sorted
     positions (``cell_start`` from :func:`sort_by_cell`, cells from :func:`cell_grid`
     with the same ``reach``).
@@ -154,6 +169,7 @@ def build_neighbour_list(pos, lp, ilp, ncell, cell_start, rlist2, half, nbr, cou
     nx, ny, nz = ncell[0], ncell[1], ncell[2]
     ncells = nx * ny * nz
     px, py, pz = lp[0] > 0.0, lp[1] > 0.0, lp[2] > 0.0
+    hl = 0.5 * lp
     longest = 0
     for c in range(ncells):
         longest = max(longest, cell_start[c + 1] - cell_start[c])
@@ -199,9 +215,9 @@ def build_neighbour_list(pos, lp, ilp, ncell, cell_start, rlist2, half, nbr, cou
                                     dx = xi - pos[j, 0]
                                     dy = yi - pos[j, 1]
                                     dz = zi - pos[j, 2]
-                                    dx -= lp[0] * np.rint(dx * ilp[0])
-                                    dy -= lp[1] * np.rint(dy * ilp[1])
-                                    dz -= lp[2] * np.rint(dz * ilp[2])
+                                    dx = min_image(dx, lp[0], hl[0])
+                                    dy = min_image(dy, lp[1], hl[1])
+                                    dz = min_image(dz, lp[2], hl[2])
                                     buf[j - lo] = dx * dx + dy * dy + dz * dz
                                 if lo <= i < hi:
                                     buf[i - lo] = np.inf
@@ -214,9 +230,9 @@ def build_neighbour_list(pos, lp, ilp, ncell, cell_start, rlist2, half, nbr, cou
                                     dx = xi - pos[j, 0]
                                     dy = yi - pos[j, 1]
                                     dz = zi - pos[j, 2]
-                                    dx -= lp[0] * np.rint(dx * ilp[0])
-                                    dy -= lp[1] * np.rint(dy * ilp[1])
-                                    dz -= lp[2] * np.rint(dz * ilp[2])
+                                    dx = min_image(dx, lp[0], hl[0])
+                                    dy = min_image(dy, lp[1], hl[1])
+                                    dz = min_image(dz, lp[2], hl[2])
                                     row[m] = j
                                     m += (dx * dx + dy * dy + dz * dz < rlist2) & (j != i)
                 keep = min(m, cap)

@@ -48,7 +48,7 @@ from ..observe import IMPULSE, KINETIC, POTENTIAL, REBUILDS, STEPS, THERMOSTAT, 
     WALL_ENERGY, kinetic_dof
 from . import Engine, register
 from .cells import (build_neighbour_list, cell_grid, image_arrays, list_capacity,
-                    mirror_half_list, permute_rows, sort_by_cell)
+                    min_image, mirror_half_list, permute_rows, sort_by_cell)
 from .rng import normal, seed_state, uniform
 from .start import lattice_positions, maxwell_boltzmann
 from .walls import LJ93, WALL_CODES, hard_wall_bounce, lj93_minimum, lj93_potential, \
@@ -106,66 +106,97 @@ def _lj_pair(r2, ushift, fc, rc):
     return ff, u
 
 
+@njit(cache=True, inline="always", error_model="numpy", fastmath=FAST)
+def _full_row(pos, nbr, i, m, lp, hl, rc2, ushift, fc, rc, image, shifted_force):
+    """Sums over the m entries of row i of a full list: (F_x, F_y, F_z, U, W_xx, W_yy,
+    W_zz) of particle i, with U and W counting each pair in full (the caller halves them).
+
+    ``image`` (apply the minimum image) and ``shifted_force`` are constants at every
+    call site, so each call is its own flat loop body that LLVM vectorises without the
+    work it does not need. The LJ lines repeat :func:`_lj_pair` on purpose (see there).
+    """
+    xi, yi, zi = pos[i, 0], pos[i, 1], pos[i, 2]
+    fx = 0.0
+    fy = 0.0
+    fz = 0.0
+    ui = 0.0
+    wx = 0.0
+    wy = 0.0
+    wz = 0.0
+    for k in range(m):
+        j = nbr[i, k]
+        dx = xi - pos[j, 0]
+        dy = yi - pos[j, 1]
+        dz = zi - pos[j, 2]
+        if image:
+            dx = min_image(dx, lp[0], hl[0])
+            dy = min_image(dy, lp[1], hl[1])
+            dz = min_image(dz, lp[2], hl[2])
+        r2 = dx * dx + dy * dy + dz * dz
+        if r2 < rc2:
+            ir2 = 1.0 / r2
+            ir6 = ir2 * ir2 * ir2
+            ff = 48.0 * ir6 * (ir6 - 0.5) * ir2
+            ui += 4.0 * ir6 * (ir6 - 1.0) - ushift
+            if shifted_force:
+                ir = np.sqrt(ir2)
+                ff -= fc * ir
+                ui += fc * (r2 * ir - rc)
+            fx += ff * dx
+            fy += ff * dy
+            fz += ff * dz
+            wx += ff * dx * dx
+            wy += ff * dy * dy
+            wz += ff * dz * dz
+    return fx, fy, fz, ui, wx, wy, wz
+
+
 @njit(cache=True, parallel=True, fastmath=FAST, error_model="numpy")
-def pair_forces_full(pos, nbr, count, lp, ilp, rc2, ushift, fc, force):
+def pair_forces_full(pos, nbr, count, lp, rc2, ushift, fc, force, xref, margin):
     """LJ forces from a full list (each pair seen from both sides, no writes to j).
 
+    Rows of particles that were farther than ``margin`` (>= r_list + skin/2) from every
+    periodic face at the list build (``xref``) skip the minimum image: their neighbours
+    were inside the box then, and neither side can have crossed a face since, because a
+    list is rebuilt before anyone moves skin/2. In a large box that is most rows.
     Returns (U, W_xx, W_yy, W_zz): pair energy (shifted by ``ushift`` per pair inside
     r_c) and the diagonal pair virial Σ_pairs r_ij,a F_ij,a.
     """
     n = pos.shape[0]
     rc = math.sqrt(rc2)
-    lx, ly, lz = lp[0], lp[1], lp[2]
-    ix, iy, iz = ilp[0], ilp[1], ilp[2]
+    hl = 0.5 * lp
+    sf = fc != 0.0
     u = 0.0
     wx = 0.0
     wy = 0.0
     wz = 0.0
     for i in prange(n):
-        xi, yi, zi = pos[i, 0], pos[i, 1], pos[i, 2]
-        fx = 0.0
-        fy = 0.0
-        fz = 0.0
-        ui = 0.0
-        wxi = 0.0
-        wyi = 0.0
-        wzi = 0.0
-        for k in range(count[i]):
-            j = nbr[i, k]
-            dx = xi - pos[j, 0]
-            dy = yi - pos[j, 1]
-            dz = zi - pos[j, 2]
-            dx -= lx * np.rint(dx * ix)
-            dy -= ly * np.rint(dy * iy)
-            dz -= lz * np.rint(dz * iz)
-            r2 = dx * dx + dy * dy + dz * dz
-            if r2 < rc2:
-                ir2 = 1.0 / r2
-                ir6 = ir2 * ir2 * ir2
-                ff = 48.0 * ir6 * (ir6 - 0.5) * ir2
-                ui += 4.0 * ir6 * (ir6 - 1.0) - ushift
-                if fc != 0.0:   # shifted force (loop-invariant: the branch is hoisted)
-                    ir = np.sqrt(ir2)
-                    ff -= fc * ir
-                    ui += fc * (r2 * ir - rc)
-                fx += ff * dx
-                fy += ff * dy
-                fz += ff * dz
-                wxi += ff * dx * dx
-                wyi += ff * dy * dy
-                wzi += ff * dz * dz
-        force[i, 0] = fx
-        force[i, 1] = fy
-        force[i, 2] = fz
-        u += ui
-        wx += wxi
-        wy += wyi
-        wz += wzi
+        inner = True
+        for a in range(3):
+            if lp[a] > 0.0 and not (margin < xref[i, a] < lp[a] - margin):
+                inner = False
+        m = count[i]
+        if sf:
+            if inner:
+                r = _full_row(pos, nbr, i, m, lp, hl, rc2, ushift, fc, rc, False, True)
+            else:
+                r = _full_row(pos, nbr, i, m, lp, hl, rc2, ushift, fc, rc, True, True)
+        elif inner:
+            r = _full_row(pos, nbr, i, m, lp, hl, rc2, ushift, fc, rc, False, False)
+        else:
+            r = _full_row(pos, nbr, i, m, lp, hl, rc2, ushift, fc, rc, True, False)
+        force[i, 0] = r[0]
+        force[i, 1] = r[1]
+        force[i, 2] = r[2]
+        u += r[3]
+        wx += r[4]
+        wy += r[5]
+        wz += r[6]
     return 0.5 * u, 0.5 * wx, 0.5 * wy, 0.5 * wz
 
 
 @njit(cache=True, parallel=True, fastmath=FAST, error_model="numpy")
-def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, fc, force, fbuf, defer=False):
+def pair_forces_half(pos, nbr, count, lp, rc2, ushift, fc, force, fbuf, defer=False):
     """LJ forces from a half list, one (N, 3) force buffer per thread in ``fbuf``.
 
     Each buffer takes the rows of one contiguous block of particles, so no two threads
@@ -177,10 +208,9 @@ def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, fc, force, fbuf, def
     n = pos.shape[0]
     nb = fbuf.shape[0]
     if nb == 1:   # one thread: straight into ``force``, no buffer pass, no parallel region
-        return _half_serial(pos, nbr, count, lp, ilp, rc2, ushift, fc, force)
+        return _half_serial(pos, nbr, count, lp, rc2, ushift, fc, force)
     rc = math.sqrt(rc2)
-    lx, ly, lz = lp[0], lp[1], lp[2]
-    ix, iy, iz = ilp[0], ilp[1], ilp[2]
+    hl = 0.5 * lp
     parts = np.zeros((nb, 4))
     for t in prange(nb):
         b = fbuf[t]
@@ -202,9 +232,9 @@ def pair_forces_half(pos, nbr, count, lp, ilp, rc2, ushift, fc, force, fbuf, def
                 dx = xi - pos[j, 0]
                 dy = yi - pos[j, 1]
                 dz = zi - pos[j, 2]
-                dx -= lx * np.rint(dx * ix)
-                dy -= ly * np.rint(dy * iy)
-                dz -= lz * np.rint(dz * iz)
+                dx = min_image(dx, lp[0], hl[0])
+                dy = min_image(dy, lp[1], hl[1])
+                dz = min_image(dz, lp[2], hl[2])
                 r2 = dx * dx + dy * dy + dz * dz
                 if r2 < rc2:
                     ff, uij = _lj_pair(r2, ushift, fc, rc)
@@ -256,12 +286,11 @@ def sum_buffers(fbuf, force):
 
 
 @njit(cache=True, fastmath=FAST, error_model="numpy")
-def _half_serial(pos, nbr, count, lp, ilp, rc2, ushift, fc, force):
+def _half_serial(pos, nbr, count, lp, rc2, ushift, fc, force):
     """:func:`pair_forces_half` on one thread, accumulating into ``force`` directly."""
     n = pos.shape[0]
     rc = math.sqrt(rc2)
-    lx, ly, lz = lp[0], lp[1], lp[2]
-    ix, iy, iz = ilp[0], ilp[1], ilp[2]
+    hl = 0.5 * lp
     for i in range(n):
         force[i, 0] = 0.0
         force[i, 1] = 0.0
@@ -280,9 +309,9 @@ def _half_serial(pos, nbr, count, lp, ilp, rc2, ushift, fc, force):
             dx = xi - pos[j, 0]
             dy = yi - pos[j, 1]
             dz = zi - pos[j, 2]
-            dx -= lx * np.rint(dx * ix)
-            dy -= ly * np.rint(dy * iy)
-            dz -= lz * np.rint(dz * iz)
+            dx = min_image(dx, lp[0], hl[0])
+            dy = min_image(dy, lp[1], hl[1])
+            dz = min_image(dz, lp[2], hl[2])
             r2 = dx * dx + dy * dy + dz * dz
             if r2 < rc2:
                 ff, uij = _lj_pair(r2, ushift, fc, rc)
@@ -378,7 +407,7 @@ def csvr_factor(ke, target, ndof, c, rng):
 
 @njit(cache=True, error_model="numpy")
 def _rebuild(x, v, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3, itmp,
-             lp, ilp, ncell, inv_width, rlist2, half, reach):
+             lp, ncell, inv_width, rlist2, half, reach):
     """Sort particles by cell (x, v and the slot ids move together) and rebuild the list;
     grows ``nbr`` when a row does not fit. Returns the (possibly new) ``nbr``."""
     n = x.shape[0]
@@ -391,7 +420,7 @@ def _rebuild(x, v, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3, itm
         ids[k] = itmp[k]
     while True:
         # Always a half build (each distance once); a full list is its mirror image.
-        widest = build_neighbour_list(x, lp, ilp, ncell, cell_start, rlist2, True, nbr, count,
+        widest = build_neighbour_list(x, lp, ncell, cell_start, rlist2, True, nbr, count,
                                       reach)
         if widest <= nbr.shape[1] and not half:
             widest = mirror_half_list(nbr, count, cell_tmp)
@@ -405,15 +434,18 @@ def _rebuild(x, v, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3, itm
 
 
 @njit(cache=True, error_model="numpy")
-def _forces(x, nbr, count, box, lp, ilp, walled, fpar, ipar, f, fbuf, fwall, defer=False):
+def _forces(x, nbr, count, box, lp, walled, fpar, ipar, f, fbuf, fwall, xref, defer=False):
     """All forces on the particles; returns (U_pairs, W_xx, W_yy, W_zz, U_walls).
-    ``defer`` may leave the pair forces in the per-thread buffers (no 9-3 walls only)."""
+    ``xref`` the positions at the list build. ``defer`` may leave the pair forces in
+    the per-thread buffers (no 9-3 walls only)."""
     if ipar[_HALF]:
-        u, wx, wy, wz = pair_forces_half(x, nbr, count, lp, ilp, fpar[_RC2], fpar[_USHIFT],
+        u, wx, wy, wz = pair_forces_half(x, nbr, count, lp, fpar[_RC2], fpar[_USHIFT],
                                          fpar[_FC], f, fbuf, defer and ipar[_WKIND] != LJ93)
     else:
-        u, wx, wy, wz = pair_forces_full(x, nbr, count, lp, ilp, fpar[_RC2], fpar[_USHIFT],
-                                         fpar[_FC], f)
+        # Margin r_list + skin: twice the skin/2 the proof needs, against rounding.
+        margin = math.sqrt(fpar[_RLIST2]) + fpar[_SKIN]
+        u, wx, wy, wz = pair_forces_full(x, nbr, count, lp, fpar[_RC2], fpar[_USHIFT],
+                                         fpar[_FC], f, xref, margin)
     uw = 0.0
     if ipar[_WKIND] == LJ93:
         uw = lj93_wall_forces(x, box, walled, fpar[_WEPS], fpar[_WSIG], fpar[_WCUT],
@@ -423,12 +455,12 @@ def _forces(x, nbr, count, box, lp, ilp, walled, fpar, ipar, f, fbuf, fwall, def
 
 @njit(cache=True, parallel=True, error_model="numpy")
 def prepare(x, v, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3, itmp, f, fbuf,
-            box, lp, ilp, walled, ncell, inv_width, fpar, ipar):
+            box, lp, walled, ncell, inv_width, fpar, ipar):
     """Sort, build the list and compute forces for a fresh state; returns ``nbr``."""
     nbr = _rebuild(x, v, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3, itmp,
-                   lp, ilp, ncell, inv_width, fpar[_RLIST2], ipar[_HALF] == 1, ipar[_REACH])
+                   lp, ncell, inv_width, fpar[_RLIST2], ipar[_HALF] == 1, ipar[_REACH])
     fwall = np.zeros(6)
-    _forces(x, nbr, count, box, lp, ilp, walled, fpar, ipar, f, fbuf, fwall)
+    _forces(x, nbr, count, box, lp, walled, fpar, ipar, f, fbuf, fwall, xref)
     return nbr
 
 
@@ -446,18 +478,17 @@ def _wrap(x, i, a, L):
 
 
 @njit(cache=True, inline="always")
-def _moved2(x, xref, i, lp, ilp):
+def _moved2(x, xref, i, lp):
     """Squared displacement of particle i since the list build (minimum image)."""
     s = 0.0
     for a in range(3):
-        d = x[i, a] - xref[i, a]
-        d -= lp[a] * np.rint(d * ilp[a])
+        d = min_image(x[i, a] - xref[i, a], lp[a], 0.5 * lp[a])
         s += d * d
     return s
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
-def _kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, ilp):
+def _kick_drift(x, v, f, box, walled, dt, hdt, xref, lp):
     """First half of a velocity-Verlet step: v += f dt/2, x += v dt (wrapped).
     Returns the largest squared displacement since the last list build."""
     moved = 0.0
@@ -467,7 +498,7 @@ def _kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, ilp):
             x[i, a] += dt * v[i, a]
             if not walled[a]:
                 _wrap(x, i, a, box[a])
-        moved = max(moved, _moved2(x, xref, i, lp, ilp))
+        moved = max(moved, _moved2(x, xref, i, lp))
     return moved
 
 
@@ -488,7 +519,7 @@ def _kick(v, f, hdt, fbuf, pending):
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
-def _kick_kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, ilp, fbuf, pending):
+def _kick_kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, fbuf, pending):
     """The second half-kick of one step fused with the first half of the next, in one
     pass (same arithmetic as :func:`_kick` then :func:`_kick_drift`); returns Σ v² at
     the end of the step and the largest squared displacement since the list build."""
@@ -506,13 +537,13 @@ def _kick_kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, ilp, fbuf, pending
             if not walled[a]:
                 _wrap(x, i, a, box[a])
         ke2 += s
-        moved = max(moved, _moved2(x, xref, i, lp, ilp))
+        moved = max(moved, _moved2(x, xref, i, lp))
     return ke2, moved
 
 
 @njit(cache=True, error_model="numpy")
 def verlet_chunk(nsteps, x, v, f, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3,
-                 itmp, fbuf, box, lp, ilp, walled, ncell, inv_width, fpar, ipar, acc, rng,
+                 itmp, fbuf, box, lp, walled, ncell, inv_width, fpar, ipar, acc, rng,
                  status):
     """Run ``nsteps`` velocity-Verlet steps on the cell-sorted working arrays.
 
@@ -534,7 +565,7 @@ def verlet_chunk(nsteps, x, v, f, ids, xref, nbr, count, cell_start, order, cell
     thermo = ipar[_THERMO] == 1
     # Pair forces left in the per-thread buffers, summed by the next half-kick.
     pending = half and fbuf.shape[0] > 1 and kind != LJ93
-    moved = _kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, ilp)
+    moved = _kick_drift(x, v, f, box, walled, dt, hdt, xref, lp)
     for step in range(nsteps):
         if any_wall:
             bad = -1
@@ -561,17 +592,17 @@ def verlet_chunk(nsteps, x, v, f, ids, xref, nbr, count, cell_start, order, cell
         # only shorten the displacement measured before them).
         if 4.0 * moved > fpar[_SKIN] * fpar[_SKIN]:
             nbr = _rebuild(x, v, ids, xref, nbr, count, cell_start, order, cell_tmp, tmp3,
-                           itmp, lp, ilp, ncell, inv_width, fpar[_RLIST2], half, ipar[_REACH])
+                           itmp, lp, ncell, inv_width, fpar[_RLIST2], half, ipar[_REACH])
             acc[REBUILDS] += 1.0
-        u, wx, wy, wz, uw = _forces(x, nbr, count, box, lp, ilp, walled, fpar, ipar, f, fbuf,
-                                    fwall, True)
+        u, wx, wy, wz, uw = _forces(x, nbr, count, box, lp, walled, fpar, ipar, f, fbuf,
+                                    fwall, xref, True)
         last = step == nsteps - 1
         # Plain NVE fuses this step's last half-kick with the next step's first half;
         # the thermostat needs the end-of-step kinetic energy first, so it cannot.
         if thermo or last:
             ke = 0.5 * _kick(v, f, hdt, fbuf, pending)
         else:
-            ke2, moved = _kick_kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, ilp, fbuf,
+            ke2, moved = _kick_kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, fbuf,
                                           pending)
             ke = 0.5 * ke2
         if thermo:
@@ -595,7 +626,7 @@ def verlet_chunk(nsteps, x, v, f, ids, xref, nbr, count, cell_start, order, cell
             status[1] = step
             return done, nbr
         if thermo and not last:
-            moved = _kick_drift(x, v, f, box, walled, dt, hdt, xref, lp, ilp)
+            moved = _kick_drift(x, v, f, box, walled, dt, hdt, xref, lp)
     return done, nbr
 
 
@@ -782,7 +813,7 @@ class LennardJones(Engine):
         f = np.zeros((n, 3))
         nbr = prepare(pos, vel, ids, xref, nbr, count, sc["cell_start"], sc["order"],
                       sc["cell_tmp"], sc["tmp3"], sc["itmp"], f, sc["fbuf"], self.box, self.lp,
-                      self.ilp, self.walled, self.ncell, self.inv_width, self.fpar, self.ipar)
+                      self.walled, self.ncell, self.inv_width, self.fpar, self.ipar)
         # The particles are labelled in their first cell-sorted order.
         ids[:] = np.arange(n)
         return {"positions": pos, "velocities": vel, "forces": f, "time": np.zeros(1),
@@ -808,7 +839,7 @@ class LennardJones(Engine):
             done, nbr = verlet_chunk(
                 nsteps, x, v, f, ids, state["list_reference"], state["neighbours"],
                 state["neighbour_count"], sc["cell_start"], sc["order"], sc["cell_tmp"],
-                sc["tmp3"], sc["itmp"], sc["fbuf"], self.box, self.lp, self.ilp, self.walled,
+                sc["tmp3"], sc["itmp"], sc["fbuf"], self.box, self.lp, self.walled,
                 self.ncell, self.inv_width, self.fpar, self.ipar, acc, state["rng"], status)
         finally:
             numba.set_num_threads(outer)
@@ -845,8 +876,8 @@ class LennardJones(Engine):
         sc = self._buffers()
         fwall = np.zeros(6)
         u, _, _, _, uw = _forces(x, state["neighbours"], state["neighbour_count"], self.box,
-                                 self.lp, self.ilp, self.walled, self.fpar, self.ipar, f,
-                                 sc["fbuf"], fwall)
+                                 self.lp, self.walled, self.fpar, self.ipar, f, sc["fbuf"],
+                                 fwall, state["list_reference"])
         return u + uw
 
     def cost_per_time(self) -> float:

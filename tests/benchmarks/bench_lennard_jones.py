@@ -8,7 +8,7 @@ second of each and their ratio. Then the cached second start (a fresh process th
 imports mdgas, builds a small LJ state and advances it: import + cache load) and the
 memory of a 1,000,000-particle gas.
 
-Usage: .venv/bin/python tests/benchmarks/bench_lennard_jones.py [--quick]
+Usage: .venv/bin/python tests/benchmarks/bench_lennard_jones.py [--quick] [--repeat N] [--state dense|gas]
 The machine may be shared: read the ratios, which are measured side by side.
 """
 
@@ -119,6 +119,8 @@ def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true", help="fewer steps (noisier)")
     ap.add_argument("--repeat", type=int, default=3, help="runs per figure (median taken)")
+    ap.add_argument("--state", choices=("dense", "gas"), help="only this state point, and "
+                    "skip the start-up and memory figures")
     args = ap.parse_args()
     exe = build_reference()
     load = os.getloadavg()[0]
@@ -128,6 +130,8 @@ def main() -> None:
               ("gas", 32000, 0.05, 2.0, 300 if args.quick else 1000)]
     print(f"{'state':<6} {'program':<16} {'atom-steps/s':>13} {'ratio':>6}  physics check")
     for name, n, rho, t, steps in points:
+        if args.state and name != args.state:
+            continue
         ref, ours1, ours2 = [], [], []
         for _ in range(args.repeat):   # interleaved, so drifting load hits all alike
             ref.append(run_reference(exe, n, rho, t, steps))
@@ -146,6 +150,8 @@ def main() -> None:
                   f"{o['atom_steps_per_s'] / base:>6.2f}  T={o['temperature']:.4f} "
                   f"P={o['pressure']:.4f} rebuilds={o['rebuilds']:.0f} "
                   f"list={'half' if o['half'] else 'full'}")
+    if args.state:
+        return
     print(f"cached second start (import + cache load + 2 short chunks): {cached_start():.2f} s")
     print(f"1,000,000-particle gas (ρ* = 0.05): peak memory {million_gas_memory():.0f} MB")
     print(f"load average after: {os.getloadavg()[0]:.2f}")
