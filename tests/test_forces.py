@@ -71,12 +71,14 @@ def test_list_forces_equal_brute_force(mode, walls, tail):
     assert acc[15] / dt == pytest.approx(u, rel=1e-11)
 
 
+@pytest.mark.parametrize("mode", ["full", "half"])
 @pytest.mark.parametrize("walls", ["none", "z"])
-def test_forces_equal_brute_force_after_the_particles_moved(walls):
-    """A box wide enough that most full-list rows skip the minimum image (farther than
-    r_list + skin from every periodic face at the build), checked against the brute-force
-    loop after 100 steps, when particles have crossed faces and lists have aged."""
-    s = lj_settings(potential__neighbour_list="full", container__walls=walls,
+def test_forces_equal_brute_force_after_the_particles_moved(mode, walls):
+    """A box wide enough that most list rows and cells skip the minimum image (rows
+    farther than r_list + skin from every periodic face at the build, cells with no
+    neighbour cell across a face), checked against the brute-force loop after 100 steps,
+    when particles have crossed faces and lists have aged."""
+    s = lj_settings(potential__neighbour_list=mode, container__walls=walls,
                     gas__particles=4000, gas__density=0.8, gas__temperature=1.5)
     e = LJ(s)
     margin = e.rlist + s.potential.skin

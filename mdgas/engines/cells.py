@@ -133,6 +133,13 @@ def _axis_cells(c, n, periodic, reach, out):
     return m
 
 
+@njit(cache=True, inline="always")
+def _no_wrap(c, n, periodic, reach):
+    """Whether the cells within ``reach`` of cell c along an axis all lie inside the box
+    without wrapping (always so on a walled axis)."""
+    return not periodic or (c >= reach and c + reach < n)
+
+
 @njit(cache=True, error_model="numpy")
 def _z_runs(c, n, periodic, reach, lo, hi):
     """Contiguous runs [lo, hi] of neighbour cell coordinates along z; returns the count
@@ -152,6 +159,45 @@ def _z_runs(c, n, periodic, reach, lo, hi):
         return 2
     lo[0], hi[0] = a, b
     return 1
+
+
+@njit(cache=True, inline="always", error_model="numpy")
+def _scan_strip(pos, xi, yi, zi, i, lo, hi, lp, hl, rlist2, buf, row, m, buffered, image):
+    """Append to ``row[m:]`` every j in [lo, hi), j != i, within sqrt(rlist2) of
+    (xi, yi, zi); returns the new m.
+
+    ``buffered`` (long strips of dense fluids): distances into ``buf`` first, in a loop
+    that vectorises, then a branch-free filter; otherwise one scalar pass, cheaper for
+    short strips. ``image``: apply the minimum image. Both are constants at each call
+    site, so each combination compiles to its own flat loop.
+    """
+    if buffered:
+        for j in range(lo, hi):
+            dx = xi - pos[j, 0]
+            dy = yi - pos[j, 1]
+            dz = zi - pos[j, 2]
+            if image:
+                dx = min_image(dx, lp[0], hl[0])
+                dy = min_image(dy, lp[1], hl[1])
+                dz = min_image(dz, lp[2], hl[2])
+            buf[j - lo] = dx * dx + dy * dy + dz * dz
+        if lo <= i < hi:
+            buf[i - lo] = np.inf
+        for j in range(lo, hi):
+            row[m] = j
+            m += buf[j - lo] < rlist2
+    else:
+        for j in range(lo, hi):
+            dx = xi - pos[j, 0]
+            dy = yi - pos[j, 1]
+            dz = zi - pos[j, 2]
+            if image:
+                dx = min_image(dx, lp[0], hl[0])
+                dy = min_image(dy, lp[1], hl[1])
+                dz = min_image(dz, lp[2], hl[2])
+            row[m] = j
+            m += (dx * dx + dy * dy + dz * dz < rlist2) & (j != i)
+    return m
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
@@ -195,6 +241,10 @@ def build_neighbour_list(pos, lp, ncell, cell_start, rlist2, half, nbr, count, r
             mx = _axis_cells(cx, nx, px, reach, xs)
             my = _axis_cells(cy, ny, py, reach, ys)
             mz = _z_runs(cz, nz, pz, reach, zlo, zhi)
+            # No neighbour cell across a periodic face: plain differences are the
+            # minimum image for every pair that can be within r_list (L >= 2 r_list).
+            inside = (_no_wrap(cx, nx, px, reach) and _no_wrap(cy, ny, py, reach)
+                      and _no_wrap(cz, nz, pz, reach))
             for i in range(cell_start[c], cell_start[c + 1]):
                 xi, yi, zi = pos[i, 0], pos[i, 1], pos[i, 2]
                 m = 0
@@ -209,32 +259,18 @@ def build_neighbour_list(pos, lp, ncell, cell_start, rlist2, half, nbr, count, r
                             if hi <= lo:
                                 continue
                             if reach > 1:
-                                # Long strips (dense, finer cells): distances into a
-                                # buffer first, a loop that vectorises, then filter.
-                                for j in range(lo, hi):   # vectorisable: no branches
-                                    dx = xi - pos[j, 0]
-                                    dy = yi - pos[j, 1]
-                                    dz = zi - pos[j, 2]
-                                    dx = min_image(dx, lp[0], hl[0])
-                                    dy = min_image(dy, lp[1], hl[1])
-                                    dz = min_image(dz, lp[2], hl[2])
-                                    buf[j - lo] = dx * dx + dy * dy + dz * dz
-                                if lo <= i < hi:
-                                    buf[i - lo] = np.inf
-                                for j in range(lo, hi):   # branch-free filter
-                                    row[m] = j
-                                    m += buf[j - lo] < rlist2
+                                if inside:
+                                    m = _scan_strip(pos, xi, yi, zi, i, lo, hi, lp, hl, rlist2,
+                                                    buf, row, m, True, False)
+                                else:
+                                    m = _scan_strip(pos, xi, yi, zi, i, lo, hi, lp, hl, rlist2,
+                                                    buf, row, m, True, True)
+                            elif inside:
+                                m = _scan_strip(pos, xi, yi, zi, i, lo, hi, lp, hl, rlist2,
+                                                buf, row, m, False, False)
                             else:
-                                # Short strips (gases): one scalar pass is cheaper.
-                                for j in range(lo, hi):
-                                    dx = xi - pos[j, 0]
-                                    dy = yi - pos[j, 1]
-                                    dz = zi - pos[j, 2]
-                                    dx = min_image(dx, lp[0], hl[0])
-                                    dy = min_image(dy, lp[1], hl[1])
-                                    dz = min_image(dz, lp[2], hl[2])
-                                    row[m] = j
-                                    m += (dx * dx + dy * dy + dz * dz < rlist2) & (j != i)
+                                m = _scan_strip(pos, xi, yi, zi, i, lo, hi, lp, hl, rlist2,
+                                                buf, row, m, False, True)
                 keep = min(m, cap)
                 for k in range(keep):
                     nbr[i, k] = row[k]

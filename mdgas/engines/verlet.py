@@ -151,15 +151,25 @@ def _full_row(pos, nbr, i, m, lp, hl, rc2, ushift, fc, rc, image, shifted_force)
     return fx, fy, fz, ui, wx, wy, wz
 
 
+@njit(cache=True, inline="always")
+def _far_from_faces(xref, i, lp, margin):
+    """Whether particle i was farther than ``margin`` from every periodic face at the
+    list build (``xref``). With ``margin`` >= r_list + skin/2 its list row needs no
+    minimum image: its neighbours were inside the box then, and neither side can have
+    crossed a face since, because the list is rebuilt before anyone moves skin/2."""
+    for a in range(3):
+        if lp[a] > 0.0 and not (margin < xref[i, a] < lp[a] - margin):
+            return False
+    return True
+
+
 @njit(cache=True, parallel=True, fastmath=FAST, error_model="numpy")
 def pair_forces_full(pos, nbr, count, lp, rc2, ushift, fc, force, xref, margin):
     """LJ forces from a full list (each pair seen from both sides, no writes to j).
 
-    Rows of particles that were farther than ``margin`` (>= r_list + skin/2) from every
-    periodic face at the list build (``xref``) skip the minimum image: their neighbours
-    were inside the box then, and neither side can have crossed a face since, because a
-    list is rebuilt before anyone moves skin/2. In a large box that is most rows.
-    Returns (U, W_xx, W_yy, W_zz): pair energy (shifted by ``ushift`` per pair inside
+    Rows of particles far from the periodic faces (:func:`_far_from_faces`, with the
+    positions ``xref`` at the build) skip the minimum image; in a large box that is
+    most rows. Returns (U, W_xx, W_yy, W_zz): pair energy (shifted by ``ushift`` per pair inside
     r_c) and the diagonal pair virial Σ_pairs r_ij,a F_ij,a.
     """
     n = pos.shape[0]
@@ -171,10 +181,7 @@ def pair_forces_full(pos, nbr, count, lp, rc2, ushift, fc, force, xref, margin):
     wy = 0.0
     wz = 0.0
     for i in prange(n):
-        inner = True
-        for a in range(3):
-            if lp[a] > 0.0 and not (margin < xref[i, a] < lp[a] - margin):
-                inner = False
+        inner = _far_from_faces(xref, i, lp, margin)
         m = count[i]
         if sf:
             if inner:
@@ -195,22 +202,86 @@ def pair_forces_full(pos, nbr, count, lp, rc2, ushift, fc, force, xref, margin):
     return 0.5 * u, 0.5 * wx, 0.5 * wy, 0.5 * wz
 
 
+@njit(cache=True, inline="always", error_model="numpy", fastmath=FAST)
+def _half_row(pos, nbr, i, m, lp, hl, rc2, ushift, fc, rc, out, image):
+    """Row i of a half list: adds the pair forces to ``out[i]`` and subtracts them from
+    ``out[j]``; returns (U, W_xx, W_yy, W_zz) of the row. ``image`` (apply the minimum
+    image) is a constant at each call site."""
+    xi, yi, zi = pos[i, 0], pos[i, 1], pos[i, 2]
+    fx = 0.0
+    fy = 0.0
+    fz = 0.0
+    u = 0.0
+    wx = 0.0
+    wy = 0.0
+    wz = 0.0
+    for k in range(m):
+        j = nbr[i, k]
+        dx = xi - pos[j, 0]
+        dy = yi - pos[j, 1]
+        dz = zi - pos[j, 2]
+        if image:
+            dx = min_image(dx, lp[0], hl[0])
+            dy = min_image(dy, lp[1], hl[1])
+            dz = min_image(dz, lp[2], hl[2])
+        r2 = dx * dx + dy * dy + dz * dz
+        if r2 < rc2:
+            ff, uij = _lj_pair(r2, ushift, fc, rc)
+            u += uij
+            fx += ff * dx
+            fy += ff * dy
+            fz += ff * dz
+            out[j, 0] -= ff * dx
+            out[j, 1] -= ff * dy
+            out[j, 2] -= ff * dz
+            wx += ff * dx * dx
+            wy += ff * dy * dy
+            wz += ff * dz * dz
+    out[i, 0] += fx
+    out[i, 1] += fy
+    out[i, 2] += fz
+    return u, wx, wy, wz
+
+
+@njit(cache=True, inline="always", error_model="numpy", fastmath=FAST)
+def _half_rows(pos, nbr, count, lp, rc2, ushift, fc, out, xref, margin, start, stop):
+    """Rows start..stop-1 of a half list into ``out`` (zeroed by the caller); returns
+    their (U, W_xx, W_yy, W_zz)."""
+    rc = math.sqrt(rc2)
+    hl = 0.5 * lp
+    u = 0.0
+    wx = 0.0
+    wy = 0.0
+    wz = 0.0
+    for i in range(start, stop):
+        if _far_from_faces(xref, i, lp, margin):
+            r = _half_row(pos, nbr, i, count[i], lp, hl, rc2, ushift, fc, rc, out, False)
+        else:
+            r = _half_row(pos, nbr, i, count[i], lp, hl, rc2, ushift, fc, rc, out, True)
+        u += r[0]
+        wx += r[1]
+        wy += r[2]
+        wz += r[3]
+    return u, wx, wy, wz
+
+
 @njit(cache=True, parallel=True, fastmath=FAST, error_model="numpy")
-def pair_forces_half(pos, nbr, count, lp, rc2, ushift, fc, force, fbuf, defer=False):
+def pair_forces_half(pos, nbr, count, lp, rc2, ushift, fc, force, fbuf, xref, margin,
+                     defer=False):
     """LJ forces from a half list, one (N, 3) force buffer per thread in ``fbuf``.
 
     Each buffer takes the rows of one contiguous block of particles, so no two threads
     write the same memory; the buffers are summed in a fixed order (deterministic for a
     given buffer count). ``defer`` leaves the sum to the caller (:func:`sum_buffers`,
-    or the next half-kick, which saves a parallel region). Returns (U, W_xx, W_yy, W_zz)
-    as :func:`pair_forces_full`.
+    or the next half-kick, which saves a parallel region). Rows far from the periodic
+    faces skip the minimum image as in :func:`pair_forces_full`. Returns (U, W_xx,
+    W_yy, W_zz) as :func:`pair_forces_full`.
     """
     n = pos.shape[0]
     nb = fbuf.shape[0]
     if nb == 1:   # one thread: straight into ``force``, no buffer pass, no parallel region
-        return _half_serial(pos, nbr, count, lp, rc2, ushift, fc, force)
-    rc = math.sqrt(rc2)
-    hl = 0.5 * lp
+        force[:] = 0.0
+        return _half_rows(pos, nbr, count, lp, rc2, ushift, fc, force, xref, margin, 0, n)
     parts = np.zeros((nb, 4))
     for t in prange(nb):
         b = fbuf[t]
@@ -218,49 +289,16 @@ def pair_forces_half(pos, nbr, count, lp, rc2, ushift, fc, force, fbuf, defer=Fa
             b[i, 0] = 0.0
             b[i, 1] = 0.0
             b[i, 2] = 0.0
-        u = 0.0
-        wx = 0.0
-        wy = 0.0
-        wz = 0.0
-        for i in range(t * n // nb, (t + 1) * n // nb):
-            xi, yi, zi = pos[i, 0], pos[i, 1], pos[i, 2]
-            fx = 0.0
-            fy = 0.0
-            fz = 0.0
-            for k in range(count[i]):
-                j = nbr[i, k]
-                dx = xi - pos[j, 0]
-                dy = yi - pos[j, 1]
-                dz = zi - pos[j, 2]
-                dx = min_image(dx, lp[0], hl[0])
-                dy = min_image(dy, lp[1], hl[1])
-                dz = min_image(dz, lp[2], hl[2])
-                r2 = dx * dx + dy * dy + dz * dz
-                if r2 < rc2:
-                    ff, uij = _lj_pair(r2, ushift, fc, rc)
-                    u += uij
-                    fx += ff * dx
-                    fy += ff * dy
-                    fz += ff * dz
-                    b[j, 0] -= ff * dx
-                    b[j, 1] -= ff * dy
-                    b[j, 2] -= ff * dz
-                    wx += ff * dx * dx
-                    wy += ff * dy * dy
-                    wz += ff * dz * dz
-            b[i, 0] += fx
-            b[i, 1] += fy
-            b[i, 2] += fz
-        parts[t, 0] = u
-        parts[t, 1] = wx
-        parts[t, 2] = wy
-        parts[t, 3] = wz
+        r = _half_rows(pos, nbr, count, lp, rc2, ushift, fc, b, xref, margin, t * n // nb,
+                       (t + 1) * n // nb)
+        for q in range(4):
+            parts[t, q] = r[q]
     if not defer:
         sum_buffers(fbuf, force)
     tot = np.zeros(4)
     for t in range(nb):
-        for s in range(4):
-            tot[s] += parts[t, s]
+        for q in range(4):
+            tot[q] += parts[t, q]
     return tot[0], tot[1], tot[2], tot[3]
 
 
@@ -283,52 +321,6 @@ def sum_buffers(fbuf, force):
     """force[i] = Σ_t fbuf[t, i], buffers in a fixed order."""
     for i in prange(force.shape[0]):
         _sum_row(fbuf, force, i)
-
-
-@njit(cache=True, fastmath=FAST, error_model="numpy")
-def _half_serial(pos, nbr, count, lp, rc2, ushift, fc, force):
-    """:func:`pair_forces_half` on one thread, accumulating into ``force`` directly."""
-    n = pos.shape[0]
-    rc = math.sqrt(rc2)
-    hl = 0.5 * lp
-    for i in range(n):
-        force[i, 0] = 0.0
-        force[i, 1] = 0.0
-        force[i, 2] = 0.0
-    u = 0.0
-    wx = 0.0
-    wy = 0.0
-    wz = 0.0
-    for i in range(n):
-        xi, yi, zi = pos[i, 0], pos[i, 1], pos[i, 2]
-        fx = 0.0
-        fy = 0.0
-        fz = 0.0
-        for k in range(count[i]):
-            j = nbr[i, k]
-            dx = xi - pos[j, 0]
-            dy = yi - pos[j, 1]
-            dz = zi - pos[j, 2]
-            dx = min_image(dx, lp[0], hl[0])
-            dy = min_image(dy, lp[1], hl[1])
-            dz = min_image(dz, lp[2], hl[2])
-            r2 = dx * dx + dy * dy + dz * dz
-            if r2 < rc2:
-                ff, uij = _lj_pair(r2, ushift, fc, rc)
-                u += uij
-                fx += ff * dx
-                fy += ff * dy
-                fz += ff * dz
-                force[j, 0] -= ff * dx
-                force[j, 1] -= ff * dy
-                force[j, 2] -= ff * dz
-                wx += ff * dx * dx
-                wy += ff * dy * dy
-                wz += ff * dz * dz
-        force[i, 0] += fx
-        force[i, 1] += fy
-        force[i, 2] += fz
-    return u, wx, wy, wz
 
 
 @njit(cache=True, error_model="numpy")
@@ -438,12 +430,13 @@ def _forces(x, nbr, count, box, lp, walled, fpar, ipar, f, fbuf, fwall, xref, de
     """All forces on the particles; returns (U_pairs, W_xx, W_yy, W_zz, U_walls).
     ``xref`` the positions at the list build. ``defer`` may leave the pair forces in
     the per-thread buffers (no 9-3 walls only)."""
+    # Margin r_list + skin: twice the skin/2 that image-free rows need, against rounding.
+    margin = math.sqrt(fpar[_RLIST2]) + fpar[_SKIN]
     if ipar[_HALF]:
         u, wx, wy, wz = pair_forces_half(x, nbr, count, lp, fpar[_RC2], fpar[_USHIFT],
-                                         fpar[_FC], f, fbuf, defer and ipar[_WKIND] != LJ93)
+                                         fpar[_FC], f, fbuf, xref, margin,
+                                         defer and ipar[_WKIND] != LJ93)
     else:
-        # Margin r_list + skin: twice the skin/2 the proof needs, against rounding.
-        margin = math.sqrt(fpar[_RLIST2]) + fpar[_SKIN]
         u, wx, wy, wz = pair_forces_full(x, nbr, count, lp, fpar[_RC2], fpar[_USHIFT],
                                          fpar[_FC], f, xref, margin)
     uw = 0.0
