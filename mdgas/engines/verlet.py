@@ -31,7 +31,9 @@ Physics
 Speed: the force kernels use a *full* neighbour list for dense states (no scatter to j,
 so the loop vectorises under fastmath) and a *half* list with one force buffer per
 thread for dilute ones, where list builds dominate and a half list halves them
-(``potential.neighbour_list = "auto"`` picks by density).
+(``potential.neighbour_list = "auto"`` picks by density). List rows of particles far
+from the periodic faces, and cells with no neighbour cell across one, skip the minimum
+image (:func:`_far_from_faces`, :func:`mdgas.engines.cells.build_neighbour_list`).
 """
 
 from __future__ import annotations
