@@ -171,8 +171,8 @@ def pair_forces_full(pos, nbr, count, lp, rc2, ushift, fc, force, xref, margin):
 
     Rows of particles far from the periodic faces (:func:`_far_from_faces`, with the
     positions ``xref`` at the build) skip the minimum image; in a large box that is
-    most rows. Returns (U, W_xx, W_yy, W_zz): pair energy (shifted by ``ushift`` per pair inside
-    r_c) and the diagonal pair virial Σ_pairs r_ij,a F_ij,a.
+    most rows. Returns (U, W_xx, W_yy, W_zz): pair energy (shifted by ``ushift`` per
+    pair inside r_c) and the diagonal pair virial Σ_pairs r_ij,a F_ij,a.
     """
     n = pos.shape[0]
     rc = math.sqrt(rc2)

@@ -8,7 +8,8 @@ second of each and their ratio. Then the cached second start (a fresh process th
 imports mdgas, builds a small LJ state and advances it: import + cache load) and the
 memory of a 1,000,000-particle gas.
 
-Usage: .venv/bin/python tests/benchmarks/bench_lennard_jones.py [--quick] [--repeat N] [--state dense|gas]
+Usage: .venv/bin/python tests/benchmarks/bench_lennard_jones.py
+           [--quick] [--repeat N] [--state dense|gas]
 The machine may be shared: read the ratios, which are measured side by side.
 """
 
