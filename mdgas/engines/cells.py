@@ -34,8 +34,9 @@ def min_image(d, L, half):
     of length L (``half`` = L/2; L = 0 on a walled axis leaves d as it is).
 
     Compare-and-shift instead of d - L·rint(d/L): the rounding instruction shares an
-    execution port with the division in the force loop, which made that loop about
-    1.1 times slower (measured on AVX-512 and AVX2 machines, same forces bit for bit).
+    execution port with the division in the vectorised force loop (measured on an
+    AVX-512 machine: 7.4 ms against 7.9 ms per dense force pass at N = 32000, same
+    forces bit for bit).
     """
     d = d - L if d > half else d
     d = d + L if d < -half else d
