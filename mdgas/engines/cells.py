@@ -43,6 +43,20 @@ def min_image(d, L, half):
     return d
 
 
+@njit(cache=True, inline="always", error_model="numpy")
+def separation(pos, j, xi, yi, zi, lp, hl, image):
+    """(x_i - x_j) of particle j from the point (xi, yi, zi), minimum image applied when
+    ``image`` (a constant at each call site, so the test costs nothing); ``hl`` = lp/2."""
+    dx = xi - pos[j, 0]
+    dy = yi - pos[j, 1]
+    dz = zi - pos[j, 2]
+    if image:
+        dx = min_image(dx, lp[0], hl[0])
+        dy = min_image(dy, lp[1], hl[1])
+        dz = min_image(dz, lp[2], hl[2])
+    return dx, dy, dz
+
+
 def image_arrays(box: np.ndarray, walled) -> tuple[np.ndarray, np.ndarray]:
     """(lp, ilp): L and 1/L on periodic axes, 0 on walled ones (see module doc)."""
     lp = np.array([0.0 if w else float(L) for L, w in zip(box, walled)])
@@ -174,13 +188,7 @@ def _scan_strip(pos, xi, yi, zi, i, lo, hi, lp, hl, rlist2, buf, row, m, buffere
     """
     if buffered:
         for j in range(lo, hi):
-            dx = xi - pos[j, 0]
-            dy = yi - pos[j, 1]
-            dz = zi - pos[j, 2]
-            if image:
-                dx = min_image(dx, lp[0], hl[0])
-                dy = min_image(dy, lp[1], hl[1])
-                dz = min_image(dz, lp[2], hl[2])
+            dx, dy, dz = separation(pos, j, xi, yi, zi, lp, hl, image)
             buf[j - lo] = dx * dx + dy * dy + dz * dz
         if lo <= i < hi:
             buf[i - lo] = np.inf
@@ -189,13 +197,7 @@ def _scan_strip(pos, xi, yi, zi, i, lo, hi, lp, hl, rlist2, buf, row, m, buffere
             m += buf[j - lo] < rlist2
     else:
         for j in range(lo, hi):
-            dx = xi - pos[j, 0]
-            dy = yi - pos[j, 1]
-            dz = zi - pos[j, 2]
-            if image:
-                dx = min_image(dx, lp[0], hl[0])
-                dy = min_image(dy, lp[1], hl[1])
-                dz = min_image(dz, lp[2], hl[2])
+            dx, dy, dz = separation(pos, j, xi, yi, zi, lp, hl, image)
             row[m] = j
             m += (dx * dx + dy * dy + dz * dz < rlist2) & (j != i)
     return m

@@ -50,7 +50,7 @@ from ..observe import IMPULSE, KINETIC, POTENTIAL, REBUILDS, STEPS, THERMOSTAT, 
     WALL_ENERGY, kinetic_dof
 from . import Engine, register
 from .cells import (build_neighbour_list, cell_grid, image_arrays, list_capacity,
-                    min_image, mirror_half_list, permute_rows, sort_by_cell)
+                    min_image, mirror_half_list, permute_rows, separation, sort_by_cell)
 from .rng import normal, seed_state, uniform
 from .start import lattice_positions, maxwell_boltzmann
 from .walls import LJ93, WALL_CODES, hard_wall_bounce, lj93_minimum, lj93_potential, \
@@ -127,13 +127,7 @@ def _full_row(pos, nbr, i, m, lp, hl, rc2, ushift, fc, rc, image, shifted_force)
     wz = 0.0
     for k in range(m):
         j = nbr[i, k]
-        dx = xi - pos[j, 0]
-        dy = yi - pos[j, 1]
-        dz = zi - pos[j, 2]
-        if image:
-            dx = min_image(dx, lp[0], hl[0])
-            dy = min_image(dy, lp[1], hl[1])
-            dz = min_image(dz, lp[2], hl[2])
+        dx, dy, dz = separation(pos, j, xi, yi, zi, lp, hl, image)
         r2 = dx * dx + dy * dy + dz * dz
         if r2 < rc2:
             ir2 = 1.0 / r2
@@ -219,13 +213,7 @@ def _half_row(pos, nbr, i, m, lp, hl, rc2, ushift, fc, rc, out, image):
     wz = 0.0
     for k in range(m):
         j = nbr[i, k]
-        dx = xi - pos[j, 0]
-        dy = yi - pos[j, 1]
-        dz = zi - pos[j, 2]
-        if image:
-            dx = min_image(dx, lp[0], hl[0])
-            dy = min_image(dy, lp[1], hl[1])
-            dz = min_image(dz, lp[2], hl[2])
+        dx, dy, dz = separation(pos, j, xi, yi, zi, lp, hl, image)
         r2 = dx * dx + dy * dy + dz * dz
         if r2 < rc2:
             ff, uij = _lj_pair(r2, ushift, fc, rc)
